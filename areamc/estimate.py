@@ -1,0 +1,290 @@
+"""Hit-or-miss estimation with confidence intervals and stopping rules.
+
+A point thrown uniformly into a box of area ``B`` lands in a set ``S`` with
+probability ``p = |S| / B``; with ``h`` hits in ``n`` points the estimate is
+``B h / n`` with standard error ``B sqrt(p̂(1 − p̂)/n)``, and the interval is
+the Wilson (1927) score interval for ``p`` scaled by ``B``.  Chunks return
+counts (sufficient statistics); estimates are formed only from merged counts,
+so chunked and parallel runs agree exactly.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, asdict
+from statistics import NormalDist
+from typing import Callable
+
+import numpy as np
+
+from .errors import OptionError
+from .sampling import Box, UniformSampler, scale_to_box
+
+__all__ = [
+    "z_for",
+    "wilson_interval",
+    "StopRule",
+    "AreaEstimate",
+    "TracePoint",
+    "HitOrMissRun",
+    "hit_or_miss",
+    "DEFAULT_POINTS",
+    "DEFAULT_MAX_POINTS",
+    "DEFAULT_CHUNK",
+]
+
+DEFAULT_POINTS = 100_000
+DEFAULT_MAX_POINTS = 20_000_000
+DEFAULT_CHUNK = 1 << 16
+
+
+def check_confidence(confidence: float) -> float:
+    """Return `confidence` as a float if it lies strictly between 0 and 1."""
+    try:
+        value = float(confidence)
+    except (TypeError, ValueError):
+        raise OptionError(f"--confidence: expected a number in (0, 1), got {confidence!r}") from None
+    if not 0.0 < value < 1.0:
+        raise OptionError(f"--confidence: must lie strictly between 0 and 1, got {confidence!r}")
+    return value
+
+
+def z_for(confidence: float) -> float:
+    """Two-sided standard normal quantile for a confidence level in (0, 1)."""
+    return NormalDist().inv_cdf(0.5 + check_confidence(confidence) / 2)
+
+
+def wilson_interval(hits, n, confidence: float = 0.95):
+    """Wilson score interval for a binomial proportion.
+
+    ``[p̂ + z²/2n ± z sqrt(p̂(1−p̂)/n + z²/4n²)] / (1 + z²/n)``
+    (Wilson 1927, JASA 22:209-212; Newcombe 1998, Statistics in Medicine
+    17:857-872, method 3).  Vectorised over `hits` and `n`; returns
+    ``(low, high)`` as fractions in [0, 1].
+
+    Examples
+    --------
+    >>> lo, hi = wilson_interval(81, 263)
+    >>> round(float(lo), 4), round(float(hi), 4)
+    (0.2553, 0.3662)
+    """
+    z = z_for(confidence)
+    hits = np.asarray(hits, dtype=float)
+    n = np.asarray(n, dtype=float)
+    p = hits / n
+    z2 = z * z
+    centre = p + z2 / (2 * n)
+    half = z * np.sqrt(p * (1 - p) / n + z2 / (4 * n * n))
+    denom = 1 + z2 / n
+    low = np.clip((centre - half) / denom, 0.0, 1.0)
+    high = np.clip((centre + half) / denom, 0.0, 1.0)
+    low = np.where(hits == 0, 0.0, low)
+    high = np.where(hits == n, 1.0, high)
+    return low, high
+
+
+@dataclass(frozen=True)
+class StopRule:
+    """When to stop sampling one estimate.
+
+    Either a fixed number of `points`, or a precision target: stop at the
+    first chunk whose interval half-width is at most `absolute` (m²) or at
+    most `relative` times the estimate, but never beyond `max_points`.
+    """
+
+    points: int | None = DEFAULT_POINTS
+    absolute: float | None = None
+    relative: float | None = None
+    max_points: int = DEFAULT_MAX_POINTS
+
+    def __post_init__(self) -> None:
+        if self.points is not None and (self.absolute is not None or self.relative is not None):
+            raise OptionError("--points and --tolerance exclude each other; give one")
+        for name in ("points", "max_points"):
+            value = getattr(self, name)
+            if value is not None and (not isinstance(value, (int, np.integer)) or value <= 0):
+                raise OptionError(f"--{name.replace('_', '-')}: must be a positive whole number, got {value!r}")
+        for name in ("absolute", "relative"):
+            value = getattr(self, name)
+            if value is not None and not (math.isfinite(value) and value > 0):
+                raise OptionError(f"--tolerance: must be positive, got {value!r}")
+        if self.points is None and self.absolute is None and self.relative is None:
+            raise OptionError("give --points or --tolerance")
+
+    @property
+    def budget(self) -> int:
+        """Most points this rule will ever draw."""
+        return int(self.points if self.points is not None else self.max_points)
+
+    @property
+    def adaptive(self) -> bool:
+        return self.points is None
+
+    def met(self, half_width: float, estimate: float) -> bool:
+        """True when a precision target is met (always False for a fixed count)."""
+        if self.absolute is not None:
+            return half_width <= self.absolute
+        if self.relative is not None:
+            return estimate > 0 and half_width <= self.relative * estimate
+        return False
+
+
+@dataclass(frozen=True)
+class AreaEstimate:
+    """A hit-or-miss area estimate; all areas in m² of the equal-area plane.
+
+    Attributes
+    ----------
+    estimate : float
+        ``box_area * hits / points``.
+    stderr : float
+        ``box_area * sqrt(p̂ (1 − p̂) / points)``.
+    ci_low, ci_high : float
+        Wilson score interval at `confidence`, scaled by `box_area`.
+    points, hits : int
+    box_area : float
+    confidence : float
+    """
+
+    estimate: float
+    stderr: float
+    ci_low: float
+    ci_high: float
+    points: int
+    hits: int
+    box_area: float
+    confidence: float
+
+    @classmethod
+    def from_counts(cls, hits: int, points: int, box_area: float, confidence: float) -> "AreaEstimate":
+        """Form the estimate, standard error and Wilson interval from counts."""
+        if points <= 0:
+            raise ValueError("an estimate needs at least one point")
+        p = hits / points
+        low, high = wilson_interval(hits, points, confidence)
+        return cls(
+            estimate=box_area * p,
+            stderr=box_area * math.sqrt(p * (1 - p) / points),
+            ci_low=box_area * float(low),
+            ci_high=box_area * float(high),
+            points=int(points),
+            hits=int(hits),
+            box_area=float(box_area),
+            confidence=float(confidence),
+        )
+
+    @property
+    def fraction(self) -> float:
+        """Hit fraction ``hits / points``."""
+        return self.hits / self.points
+
+    @property
+    def half_width(self) -> float:
+        """Half the interval's width, m²."""
+        return (self.ci_high - self.ci_low) / 2
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class TracePoint:
+    """Running counts after `points` points (one entry per classified column)."""
+
+    points: int
+    hits: tuple[int, ...]
+
+
+@dataclass(frozen=True)
+class HitOrMissRun:
+    """Outcome of :func:`hit_or_miss`: one estimate per column, and the trace."""
+
+    estimates: tuple[AreaEstimate, ...]
+    trace: tuple[TracePoint, ...]
+    stopped_early: bool
+
+
+Classify = Callable[[np.ndarray, np.ndarray], np.ndarray]
+Progress = Callable[[int, AreaEstimate], None]
+
+
+def hit_or_miss(
+    box: Box,
+    classify: Classify,
+    sampler: UniformSampler,
+    *,
+    stop: StopRule,
+    confidence: float = 0.95,
+    chunk: int = DEFAULT_CHUNK,
+    trace_every: int | None = None,
+    progress: Progress | None = None,
+) -> HitOrMissRun:
+    """Throw points into `box` chunk by chunk and count hits.
+
+    Parameters
+    ----------
+    box : Box
+        Sampling box in plane metres.
+    classify : callable
+        ``classify(x, y)`` returns a bool array of shape ``(n,)`` (one set) or
+        ``(n, m)`` (m sets counted on the same points).
+    sampler : UniformSampler
+        Source of points in [0, 1)²; its stream position decides the points,
+        so the result does not depend on `chunk`.
+    stop : StopRule
+        Fixed count, or precision target checked at the end of each chunk on
+        every column.
+    confidence : float
+        Level of the Wilson intervals.
+    chunk : int
+        Points per chunk; memory is ``O(chunk)``.
+    trace_every : int, optional
+        Record running counts every this many points (exactly, across chunks).
+    progress : callable, optional
+        Called after each chunk with (points so far, estimate of column 0).
+
+    Returns
+    -------
+    HitOrMissRun
+    """
+    if chunk <= 0:
+        raise OptionError(f"--chunk: must be a positive whole number, got {chunk!r}")
+    if trace_every is not None and trace_every <= 0:
+        raise OptionError(f"--trace-every: must be a positive whole number, got {trace_every!r}")
+    confidence = check_confidence(confidence)
+    budget = stop.budget
+    done = 0
+    hits: np.ndarray | None = None
+    trace: list[TracePoint] = []
+    stopped_early = False
+    while done < budget:
+        n = min(chunk, budget - done)
+        x, y = scale_to_box(sampler.random(n), box)
+        inside = np.asarray(classify(x, y), dtype=bool)
+        if inside.ndim == 1:
+            inside = inside[:, None]
+        if hits is None:
+            hits = np.zeros(inside.shape[1], dtype=np.int64)
+        if trace_every:
+            _extend_trace(trace, inside, done, hits, trace_every)
+        hits = hits + inside.sum(axis=0)
+        done += n
+        estimates = [AreaEstimate.from_counts(int(h), done, box.area, confidence) for h in hits]
+        if progress is not None:
+            progress(done, estimates[0])
+        if stop.adaptive and all(stop.met(e.half_width, e.estimate) for e in estimates):
+            stopped_early = done < budget
+            break
+    return HitOrMissRun(tuple(estimates), tuple(trace), stopped_early)
+
+
+def _extend_trace(trace: list[TracePoint], inside: np.ndarray, start: int, hits: np.ndarray, every: int) -> None:
+    """Append running counts at every multiple of `every` that falls in this chunk."""
+    n = inside.shape[0]
+    first = (start // every + 1) * every
+    marks = np.arange(first, start + n + 1, every)
+    if marks.size == 0:
+        return
+    cumulative = np.cumsum(inside, axis=0)
+    for mark in marks:
+        trace.append(TracePoint(int(mark), tuple(int(v) for v in hits + cumulative[mark - start - 1])))
