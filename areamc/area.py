@@ -14,7 +14,7 @@ from typing import Callable
 import numpy as np
 
 from .classify import inside
-from .estimate import DEFAULT_CHUNK, AreaEstimate, StopRule, TracePoint, check_confidence, hit_or_miss
+from .estimate import DEFAULT_CHUNK, AreaEstimate, StopRule, area_target, check_confidence, hit_or_miss
 from .exact import FLAG_Z, deviation, geodesic_area, planar_area
 from .project import EqualAreaPlane, ProjectedLayer
 from .sampling import Box, UniformSampler, child_seed, make_seed
@@ -152,18 +152,18 @@ def estimate_areas(
     rows: list[AreaRow] = []
     traces: dict = {}
     for i, (fid, geom) in enumerate(zip(layer.ids, layer.planar)):
-        sampler = UniformSampler(child_seed(root, i))
+        box = Box.of(geom.bounds)
         run = hit_or_miss(
-            Box.of(geom.bounds),
+            box,
             inside(geom),
-            sampler,
-            stop=stop,
-            confidence=confidence,
+            UniformSampler(child_seed(root, i)),
+            budget=stop.budget,
+            done=area_target(stop, box.area, confidence),
             chunk=chunk,
             trace_every=trace_every,
-            progress=None if progress is None else (lambda n, est, fid=fid: progress(fid, n, est)),
+            progress=None if progress is None else _report(progress, fid, box.area, confidence),
         )
-        est = run.estimates[0]
+        est = run.estimate(0, confidence)
         if trace_every:
             traces[fid] = run.trace
         planar = float(exact_areas[i]) if exact else None
@@ -187,3 +187,10 @@ def estimate_areas(
             )
         )
     return AreaReport(tuple(rows), layer.plane, confidence, int(root.entropy), stop, layer.densify_m, traces)
+
+
+def _report(progress: Progress, fid: str, box_area: float, confidence: float):
+    def call(points: int, hits) -> None:
+        progress(fid, points, AreaEstimate.from_counts(int(hits[0]), points, box_area, confidence))
+
+    return call

@@ -28,6 +28,8 @@ __all__ = [
     "TracePoint",
     "HitOrMissRun",
     "hit_or_miss",
+    "area_target",
+    "check_confidence",
     "DEFAULT_POINTS",
     "DEFAULT_MAX_POINTS",
     "DEFAULT_CHUNK",
@@ -197,15 +199,39 @@ class TracePoint:
 
 @dataclass(frozen=True)
 class HitOrMissRun:
-    """Outcome of :func:`hit_or_miss`: one estimate per column, and the trace."""
+    """Counts from :func:`hit_or_miss`: points thrown, hits per column, and the trace."""
 
-    estimates: tuple[AreaEstimate, ...]
+    points: int
+    hits: tuple[int, ...]
+    box_area: float
     trace: tuple[TracePoint, ...]
     stopped_early: bool
 
+    def estimate(self, column: int = 0, confidence: float = 0.95) -> AreaEstimate:
+        """The area estimate (m²) of one column, from the merged counts."""
+        return AreaEstimate.from_counts(self.hits[column], self.points, self.box_area, confidence)
+
 
 Classify = Callable[[np.ndarray, np.ndarray], np.ndarray]
-Progress = Callable[[int, AreaEstimate], None]
+Done = Callable[[np.ndarray, int], bool]
+Progress = Callable[[int, np.ndarray], None]
+
+
+def area_target(stop: StopRule, box_area: float, confidence: float) -> Done | None:
+    """The early-stopping test of `stop` for area columns in a box of `box_area` m².
+
+    Every column's Wilson half-width must meet the precision target.
+    """
+    if not stop.adaptive:
+        return None
+
+    def done(hits: np.ndarray, points: int) -> bool:
+        return all(
+            stop.met(e.half_width, e.estimate)
+            for e in (AreaEstimate.from_counts(int(h), points, box_area, confidence) for h in hits)
+        )
+
+    return done
 
 
 def hit_or_miss(
@@ -213,8 +239,8 @@ def hit_or_miss(
     classify: Classify,
     sampler: UniformSampler,
     *,
-    stop: StopRule,
-    confidence: float = 0.95,
+    budget: int,
+    done: Done | None = None,
     chunk: int = DEFAULT_CHUNK,
     trace_every: int | None = None,
     progress: Progress | None = None,
@@ -230,18 +256,18 @@ def hit_or_miss(
         ``(n, m)`` (m sets counted on the same points).
     sampler : UniformSampler
         Source of points in [0, 1)²; its stream position decides the points,
-        so the result does not depend on `chunk`.
-    stop : StopRule
-        Fixed count, or precision target checked at the end of each chunk on
-        every column.
-    confidence : float
-        Level of the Wilson intervals.
+        so the counts do not depend on `chunk`.
+    budget : int
+        Most points to throw.
+    done : callable, optional
+        ``done(hits, points)`` checked at the end of each chunk; True stops
+        (a precision target met, or a sequential decision reached).
     chunk : int
         Points per chunk; memory is ``O(chunk)``.
     trace_every : int, optional
         Record running counts every this many points (exactly, across chunks).
     progress : callable, optional
-        Called after each chunk with (points so far, estimate of column 0).
+        Called after each chunk with (points so far, hits so far).
 
     Returns
     -------
@@ -251,14 +277,12 @@ def hit_or_miss(
         raise OptionError(f"--chunk: must be a positive whole number, got {chunk!r}")
     if trace_every is not None and trace_every <= 0:
         raise OptionError(f"--trace-every: must be a positive whole number, got {trace_every!r}")
-    confidence = check_confidence(confidence)
-    budget = stop.budget
-    done = 0
+    points = 0
     hits: np.ndarray | None = None
     trace: list[TracePoint] = []
     stopped_early = False
-    while done < budget:
-        n = min(chunk, budget - done)
+    while points < budget:
+        n = min(chunk, budget - points)
         x, y = scale_to_box(sampler.random(n), box)
         inside = np.asarray(classify(x, y), dtype=bool)
         if inside.ndim == 1:
@@ -266,16 +290,15 @@ def hit_or_miss(
         if hits is None:
             hits = np.zeros(inside.shape[1], dtype=np.int64)
         if trace_every:
-            _extend_trace(trace, inside, done, hits, trace_every)
+            _extend_trace(trace, inside, points, hits, trace_every)
         hits = hits + inside.sum(axis=0)
-        done += n
-        estimates = [AreaEstimate.from_counts(int(h), done, box.area, confidence) for h in hits]
+        points += n
         if progress is not None:
-            progress(done, estimates[0])
-        if stop.adaptive and all(stop.met(e.half_width, e.estimate) for e in estimates):
-            stopped_early = done < budget
+            progress(points, hits)
+        if done is not None and done(hits, points):
+            stopped_early = points < budget
             break
-    return HitOrMissRun(tuple(estimates), tuple(trace), stopped_early)
+    return HitOrMissRun(points, tuple(int(h) for h in hits), box.area, tuple(trace), stopped_early)
 
 
 def _extend_trace(trace: list[TracePoint], inside: np.ndarray, start: int, hits: np.ndarray, every: int) -> None:

@@ -36,6 +36,7 @@ __all__ = [
     "measure_area_distortion",
     "resolve_plane",
     "project_layer",
+    "project_layers",
     "quadrangle_area",
     "DEFAULT_DENSIFY_M",
     "MAX_AREA_DISTORTION",
@@ -338,14 +339,31 @@ def project_layer(
     ProjectedLayer
         Planar geometries in metres, and lon/lat copies for geodesic areas.
     """
-    dense = densify(layer.geometries, layer.crs, densify_m)
-    to_lonlat = transformer(layer.crs, LONLAT)
-    lonlat = _transform_all(dense, to_lonlat, layer)
+    return project_layers([layer], crs=crs, densify_m=densify_m, plane=plane)[0]
+
+
+def project_layers(
+    layers: list[Layer],
+    *,
+    crs: str | pyproj.CRS | None = None,
+    densify_m: float = DEFAULT_DENSIFY_M,
+    plane: EqualAreaPlane | None = None,
+) -> list[ProjectedLayer]:
+    """Put several layers, each in its own CRS, on one equal-area plane.
+
+    The plane is resolved over the union of the layers' extents (see
+    :func:`project_layer` for the parameters), so regions and zones given in
+    different CRSs are compared in the same metres.
+    """
+    dense = [densify(layer.geometries, layer.crs, densify_m) for layer in layers]
+    lonlat = [_transform_all(d, transformer(layer.crs, LONLAT), layer) for d, layer in zip(dense, layers)]
     if plane is None:
-        plane = resolve_plane(lonlat_bounds(lonlat), crs)
-    to_plane = transformer(layer.crs, plane.crs)
-    planar = _transform_all(dense, to_plane, layer)
-    return ProjectedLayer(layer.ids, planar, lonlat, plane, densify_m, layer)
+        plane = resolve_plane(lonlat_bounds(np.concatenate(lonlat)), crs)
+    out = []
+    for d, ll, layer in zip(dense, lonlat, layers):
+        planar = _transform_all(d, transformer(layer.crs, plane.crs), layer)
+        out.append(ProjectedLayer(layer.ids, planar, ll, plane, densify_m, layer))
+    return out
 
 
 def _transform_all(geoms: np.ndarray, trans: pyproj.Transformer, layer: Layer) -> np.ndarray:

@@ -292,7 +292,7 @@ def build_districts(rng, outline, lake, island):
     # match the Voronoi cells to their seeds (independent of output order)
     cell_of = [next(c for c in cells if c.contains(Point(s))) for s in seeds]
     edges = shapely.get_parts(shapely.voronoi_polygons(MultiPoint(seeds), extend_to=frame, only_edges=True))
-    edges = [wiggle_edge(e, rng) for e in edges for e in shapely.get_parts(shapely.line_merge(e))]
+    edges = [wiggle_edge(e, rng) for e in edges]  # each Voronoi edge is one straight segment
 
     # hooked tongue of land reaching from Millbrook north into Kestrel Heath,
     # which makes Kestrel Heath strongly concave
@@ -306,14 +306,16 @@ def build_districts(rng, outline, lake, island):
             (mid[0] + 1000.0, mid[1] + 4500.0),
             (mid[0] - 500.0, mid[1] + 8600.0),
             (mid[0] - 5500.0, mid[1] + 9400.0),
-            (mid[0] - 8000.0, mid[1] + 6500.0),
+            (mid[0] - 8000.0, mid[1] + 6000.0),
+            (mid[0] - 6500.0, mid[1] + 3800.0),
         ]
     )
-    tongue = hook.buffer(2100.0, quad_segs=6)
+    tongue = hook.buffer(2600.0, quad_segs=6)
     # keep the tongue well away from Kestrel Heath's other borders so that
     # the district stays in one piece
     b_cell, a_cell = cell_of[ids.index(CONCAVE_DISTRICT)], cell_of[ids.index(TONGUE_OWNER)]
-    pieces = polygon_parts(tongue.intersection(b_cell.buffer(-1800.0).union(a_cell)))
+    allowed = b_cell.buffer(-1500.0).union(a_cell.buffer(2500.0)).intersection(a_cell.union(b_cell))
+    pieces = polygon_parts(tongue.intersection(allowed))
     tongue = max((g for g in pieces if g.intersects(a_cell)), key=lambda g: g.area)
 
     lines = [outline.exterior, lake.exterior, island.exterior, tongue.boundary] + edges
@@ -491,36 +493,35 @@ def build_service_zones(rng, outline, lake):
     return out
 
 
-CLINIC_NAMES = (
-    "Millbrook Health Centre",
-    "Ashford Surgery",
-    "Fenwick Cross Clinic",
-    "Kestrel Heath Health Post",
-    "Harrow Fen Medical Rooms",
-    "Brackenmoor Cottage Clinic",
-    "Duncombe Wold Health Post",
-    "Lowater Quay Clinic",
-    "Saltry Hills Family Practice",
-    "Eastmere Road Health Post",
-)
+N_CLINICS = 10
+TOWN_CLINIC_NAMES = ("Millbrook Health Centre", "Ashford Surgery", "Fenwick Cross Clinic")
+RURAL_CLINIC_KINDS = ("Health Post", "Medical Rooms", "Cottage Clinic", "Family Practice", "Surgery", "Clinic", "Care Point")
 
 
-def build_clinics(rng, county):
+def build_clinics(rng, county, districts_utm):
+    """Three clinics in the towns, the rest scattered over the countryside
+    (not in the forest, at least 7 km apart), named after their district."""
     pts = [km(t[1] + 0.3, t[2] - 0.2) for t in TOWNS]
+    names = list(TOWN_CLINIC_NAMES)
+    inner = county.buffer(-1000.0)
+    district_names = {d[0]: d[1] for d in DISTRICTS}
     tries = 0
-    while len(pts) < len(CLINIC_NAMES):
+    while len(pts) < N_CLINICS:
         tries += 1
+        assert tries < 10_000
         x, y = km(rng.uniform(-27, 27), rng.uniform(-19, 19))
         p = Point(x, y)
-        dx, dy = (x - CX) / 1000.0, (y - CY) / 1000.0
-        if not county.buffer(-1000.0).contains(p) or forest_radius(dx, dy) < 1.2:
+        if not inner.contains(p) or forest_radius((x - CX) / 1000.0, (y - CY) / 1000.0) < 1.2:
             continue
         if min(math.hypot(x - q[0], y - q[1]) for q in pts) < 7000.0:
             continue
+        did = next(d for d, g in districts_utm.items() if g.contains(p))
+        kind = RURAL_CLINIC_KINDS[(len(pts) - len(TOWNS)) % len(RURAL_CLINIC_KINDS)]
+        names.append(f"{district_names[did]} {kind}")  # kinds differ, so names are unique
         pts.append((x, y))
-        assert tries < 10_000
     reach = np.round(rng.uniform(3000.0, 9000.0, len(pts)), 0)
-    return [(f"C{k:02d}", CLINIC_NAMES[k - 1], float(reach[k - 1]), Point(p)) for k, p in enumerate(pts, start=1)]
+    assert len(set(names)) == len(names)
+    return [(f"C{k:02d}", names[k - 1], float(reach[k - 1]), Point(p)) for k, p in enumerate(pts, start=1)]
 
 
 def build_reserves(rng, county, lake):
@@ -631,7 +632,7 @@ def main():
     districts_utm, county_utm, _ = build_districts(rng, outline, lake, island)
     blocks_utm, block_owner, block_pop, merged = build_blocks(rng, districts_utm, outline)
     zones_utm = build_service_zones(rng, outline, lake)
-    clinics_utm = build_clinics(rng, county_utm)
+    clinics_utm = build_clinics(rng, county_utm, districts_utm)
     reserves = build_reserves(rng, county_utm, lake)
 
     # --- lon/lat versions. Districts are rebuilt as the union of their
@@ -794,7 +795,15 @@ def verify():
     for (dp, dg) in districts:
         bu = shapely.unary_union(by_d[dp["district_id"]])
         assert dg.symmetric_difference(bu).area < 1e-12
+    block_geoms = [g for _, g in blocks]
+    assert abs(sum(g.area for g in block_geoms) - area_sum) < 1e-12 * len(blocks)
+    assert len({p["block_id"] for p, _ in blocks}) == len(blocks)
     total_pop = sum(p["population"] for p, _ in blocks)
+    assert sum(p["population"] == 0 for p, _ in blocks) >= 3
+    # every lon/lat coordinate is on the 1e-7 degree grid
+    for layer_geoms in (geoms, block_geoms, [g for _, g in zones], [g for _, g in clinics]):
+        c = shapely.get_coordinates(layer_geoms)
+        assert np.array_equal(c, np.round(c, LONLAT_DECIMALS))
 
     crs, shp = _read(OUT_DIR / (SHP_BASE + ".shp"))
     assert crs == 4326 and len(shp) == 8

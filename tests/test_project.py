@@ -1,0 +1,319 @@
+"""Tests of areamc.project: equal-area planes, densification and reprojection.
+
+References (see /work/shared/REFERENCES.md):
+* Karney (2013), "Algorithms for geodesics", J. Geodesy 87:43-55, through pyproj.Geod.
+* Snyder (1987), Map Projections: A Working Manual, USGS Prof. Paper 1395, eq. 3-12 (the
+  authalic q function) and Appendix A (worked LAEA example).
+* NIMA TR8350.2 (WGS84 defining constants, Table 3.1 [memory for the table number]).
+* IOGP Guidance Note 7-2 (worked ETRS89-LAEA example).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pyproj
+import pytest
+import shapely
+from shapely.geometry import Point, Polygon, box
+
+from areamc.errors import CRSError, NotEqualAreaError
+from areamc.exact import geodesic_area, planar_area
+from areamc.project import (
+    LONLAT,
+    WGS84,
+    choose_plane,
+    densify,
+    measure_area_distortion,
+    quadrangle_area,
+    resolve_plane,
+    transform_geometry,
+    transformer,
+)
+
+from conftest import COUNTRY, EQUATOR_BOX, HIGH_LATITUDE_BOX, MID_LATITUDE_BOX, TEN_DEGREE_BOX, lonlat_box
+
+EUROPE = (-10.0, 35.0, 30.0, 70.0)
+
+# REFERENCES.md §2: quadrangle areas on WGS84, A = (a²/2) Δλ (q(φ2) − q(φ1)) [computed, 40 digits].
+QUADRANGLES = [
+    ((0.0, 0.0, 1.0, 1.0), 12_308_463_893.975352),
+    ((0.0, 45.0, 1.0, 46.0), 8_686_494_956.670401),
+    ((0.0, 80.0, 1.0, 81.0), 2_058_274_854.323786),
+    ((10.0, 40.0, 20.0, 50.0), 875_097_690_661.69982),
+    ((0.0, 0.0, 10.0, 10.0), 1_224_832_293_977.7725),
+    ((170.0, -60.0, 180.0, -50.0), 711_460_782_666.68829),
+]
+QUADRANGLE_IDS = ["0N_0E_1deg", "45N_0E_1deg", "80N_0E_1deg", "40N_10E_10deg", "0N_0E_10deg", "60S_170E_10deg"]
+NORTH_OF_80_CAP = 3_908_572_761_836.572  # REFERENCES.md §2 [computed]
+#: Total area of the WGS84 ellipsoid, REFERENCES.md §1 [computed, 40 digits; pyproj.Geod agrees].
+WGS84_TOTAL_AREA = 510_065_621_724_088.5
+
+
+def rel(a, b):
+    return abs(a / b - 1)
+
+
+# --------------------------------------------------------------------------------------------
+# WGS84 constants and the closed-form quadrangle
+# --------------------------------------------------------------------------------------------
+
+
+def test_wgs84__defining_constants():
+    # NIMA TR8350.2, Table 3.1: a = 6 378 137 m, 1/f = 298.257 223 563.
+    assert WGS84.a == 6_378_137.0
+    assert 1 / WGS84.f == pytest.approx(298.257223563, rel=1e-13)
+
+
+def test_quadrangle_area__whole_ellipsoid__total_area_and_authalic_radius():
+    total = float(quadrangle_area(-180, -90, 180, 90))
+    # REFERENCES.md §1: total area 510 065 621 724 088.5 m², rel 1e-12.
+    assert total == pytest.approx(WGS84_TOTAL_AREA, rel=1e-12)
+    # Authalic radius R_q with 4 pi R_q² = total area: 6 371 007.1809 m (NIMA TR8350.2),
+    # half a unit of the last printed digit.
+    assert math.sqrt(total / (4 * math.pi)) == pytest.approx(6_371_007.1809, abs=5e-5)
+
+
+@pytest.mark.parametrize("bounds, expected", QUADRANGLES, ids=QUADRANGLE_IDS)
+def test_quadrangle_area__closed_form_table(bounds, expected):
+    # REFERENCES.md §2 table, rel 1e-12.
+    assert float(quadrangle_area(*bounds)) == pytest.approx(expected, rel=1e-12)
+
+
+def test_quadrangle_area__cap_and_vectorised():
+    assert float(quadrangle_area(-180, 80, 180, 90)) == pytest.approx(NORTH_OF_80_CAP, rel=1e-12)
+    bounds = np.array([b for b, _ in QUADRANGLES])
+    got = quadrangle_area(bounds[:, 0], bounds[:, 1], bounds[:, 2], bounds[:, 3])
+    np.testing.assert_allclose(got, [v for _, v in QUADRANGLES], rtol=1e-12)
+    # Order of the corners does not change the (unsigned) area.
+    assert float(quadrangle_area(1, 1, 0, 0)) == pytest.approx(QUADRANGLES[0][1], rel=1e-12)
+
+
+def test_quadrangle_area__whole_globe_matches_geodesic_library(geod):
+    # pyproj.Geod (Karney 2013) carries the ellipsoid's total area itself: the area of the
+    # "polygon" of a full parallel at the equator, counter-clockwise, is half the ellipsoid.
+    lons = np.linspace(-180, 180, 5)[:-1]
+    half, _ = geod.polygon_area_perimeter(lons, np.zeros_like(lons))
+    assert 2 * abs(half) == pytest.approx(float(quadrangle_area(-180, -90, 180, 90)), rel=1e-12)
+
+
+# --------------------------------------------------------------------------------------------
+# Planar areas in the chosen plane against geodesic and closed-form areas
+# --------------------------------------------------------------------------------------------
+
+CASES = {
+    "equator": lonlat_box(EQUATOR_BOX),
+    "mid_latitude": lonlat_box(MID_LATITUDE_BOX),
+    "high_latitude": lonlat_box(HIGH_LATITUDE_BOX),
+    "ten_degree": lonlat_box(TEN_DEGREE_BOX),
+    "country": COUNTRY,
+}
+
+
+@pytest.mark.parametrize("name", list(CASES))
+def test_planar_area__chosen_plane__matches_geodesic(name, project, reference_geodesic_area):
+    # Reference: pyproj.Geod (Karney 2013) on the polygon cut into 1000 pieces per edge, by the
+    # test's own densification; rel 1e-6.
+    geom = CASES[name]
+    projected = project([geom])
+    assert projected.plane.chosen
+    assert projected.plane.distortion < 1e-6
+    expected = reference_geodesic_area(geom, 1000)
+    assert rel(float(planar_area(projected.planar)[0]), expected) < 1e-6
+    assert rel(geodesic_area(projected.lonlat[0]), expected) < 1e-6
+
+
+@pytest.mark.parametrize("bounds, expected", QUADRANGLES, ids=QUADRANGLE_IDS)
+def test_planar_and_geodesic_area__four_corner_box__closed_form(bounds, expected, project):
+    # The box is given by its 4 corners only; parallels are not geodesics, so this passes only
+    # because the tool densifies (REFERENCES.md §2: a 10 degree box must reach rel 1e-6).
+    projected = project([lonlat_box(bounds)])
+    assert rel(float(planar_area(projected.planar)[0]), expected) < 1e-6
+    assert rel(geodesic_area(projected.lonlat[0]), expected) < 1e-6
+
+
+def test_geodesic_area__ten_degree_box__undensified_corners_are_off(geod):
+    # The check above has power: pyproj.Geod on the 4 corners of the 10 degree box is off by
+    # about 2.5e-3 (REFERENCES.md §2), far beyond 1e-6.
+    w, s, e, n = TEN_DEGREE_BOX
+    area, _ = geod.polygon_area_perimeter([w, e, e, w], [s, s, n, n])
+    assert rel(abs(area), QUADRANGLES[3][1]) > 1e-4
+
+
+@pytest.mark.parametrize("crs", [None, "EPSG:6933", "EPSG:8857"])
+def test_planar_area__geodesic_edge_polygon(crs, project, geod):
+    # REFERENCES.md §3: polygon with geodesic edges (0,0), (20,5), (12,25), (-3,15);
+    # Geod area 4 237 542 455 855.994 m² [computed]. Each edge is cut into 1000 geodesic pieces
+    # with Geod.npts before it reaches the tool; LAEA, EPSG:6933 and EPSG:8857 agree to ~1e-7.
+    expected = 4_237_542_455_855.994
+    corners = [(0, 0), (20, 5), (12, 25), (-3, 15)]
+    ring = []
+    for (x1, y1), (x2, y2) in zip(corners, corners[1:] + corners[:1]):
+        ring.append((x1, y1))
+        ring.extend(geod.npts(x1, y1, x2, y2, 999))
+    poly = Polygon(ring)
+    assert abs(geod.geometry_area_perimeter(poly)[0]) == pytest.approx(expected, rel=1e-12)
+    projected = project([poly], crs=crs)
+    assert projected.plane.chosen is (crs is None)
+    if crs is not None:
+        assert projected.plane.label == crs
+    assert rel(float(planar_area(projected.planar)[0]), expected) < 1e-7
+    assert rel(geodesic_area(projected.lonlat[0]), expected) < 1e-7
+
+
+# --------------------------------------------------------------------------------------------
+# Which planes are accepted
+# --------------------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("crs", ["EPSG:3857", "EPSG:32632", "EPSG:4326"])
+def test_resolve_plane__not_equal_area__refused(crs):
+    with pytest.raises(NotEqualAreaError):
+        resolve_plane((5.0, 45.0, 12.0, 50.0), crs)
+
+
+@pytest.mark.parametrize("crs", ["EPSG:3857", "EPSG:32632", "EPSG:4326"])
+def test_project_layer__not_equal_area__refused(crs, project):
+    with pytest.raises(NotEqualAreaError):
+        project([lonlat_box(MID_LATITUDE_BOX)], crs=crs)
+
+
+@pytest.mark.parametrize("crs", ["EPSG:6933", "EPSG:3035"])
+def test_resolve_plane__equal_area__accepted_over_europe(crs):
+    plane = resolve_plane(EUROPE, crs)
+    assert plane.label == crs and not plane.chosen
+    assert plane.distortion < 1e-6
+
+
+@pytest.mark.parametrize("crs", ["EPSG:6933", "EPSG:3035"])
+def test_planar_area__requested_plane__country(crs, project, reference_geodesic_area):
+    # pyproj.Geod reference, rel 1e-6; EPSG:3035 has northing-first axes, so this also checks that
+    # planar coordinates come out (easting, northing).
+    projected = project([COUNTRY], crs=crs)
+    assert rel(float(planar_area(projected.planar)[0]), reference_geodesic_area(COUNTRY, 1000)) < 1e-6
+    minx, miny, maxx, maxy = projected.planar[0].bounds
+    assert (maxx - minx) > (maxy - miny)  # the shape is wider east-west than north-south
+
+
+def test_measure_area_distortion__mercator_and_utm_scale():
+    # REFERENCES.md §3: EPSG:3857 areal scale sec²φ = 4.000 at 60 degrees (distortion 3);
+    # UTM zone edge (3 degrees from the central meridian) at the equator: scale 1.001963.
+    merc, _, _ = measure_area_distortion(pyproj.CRS.from_epsg(3857), (0.0, 60.0, 0.0, 60.0))
+    assert merc == pytest.approx(3.0, rel=1e-6)
+    utm, _, _ = measure_area_distortion(pyproj.CRS.from_epsg(32632), (12.0, 0.0, 12.0, 0.0))
+    assert utm == pytest.approx(0.001963, abs=5e-7)
+    geographic, _, _ = measure_area_distortion(LONLAT, EUROPE)
+    assert geographic == math.inf
+
+
+def test_choose_plane__global_extent__cylindrical():
+    assert choose_plane((-180.0, -80.0, 180.0, 80.0)).to_epsg() == 6933
+    assert choose_plane((0.0, 0.0, 170.0, 10.0)).to_epsg() == 6933  # more than 60 degrees of arc
+
+
+def test_choose_plane__regional_extent__laea_on_wgs84():
+    crs = choose_plane(EUROPE)
+    params = dict(item.split("=", 1) if "=" in item else (item, None) for item in crs.srs.replace("+", "").split())
+    assert params["proj"] == "laea"
+    assert float(params["lon_0"]) == 10.0 and float(params["lat_0"]) == 52.5
+    # NIMA TR8350.2: a = 6 378 137 m, 1/f = 298.257 223 563.
+    assert crs.ellipsoid.semi_major_metre == 6_378_137.0
+    assert crs.ellipsoid.inverse_flattening == pytest.approx(298.257223563, rel=1e-12)
+
+
+# --------------------------------------------------------------------------------------------
+# Handbook worked examples, through the planes areamc builds
+# --------------------------------------------------------------------------------------------
+
+
+def test_choose_plane__laea__etrs89_worked_example():
+    # IOGP Guidance Note 7-2, ETRS89-LAEA (EPSG:3035: lat_0 52N, lon_0 10E, FE 4 321 000 m,
+    # FN 3 210 000 m): 50N 5E -> E = 3 962 799.45, N = 2 999 718.85 (half a unit of the last digit).
+    # An extent centred on 52N 10E makes areamc build the same LAEA without false origin, on WGS84
+    # instead of GRS80 (the two differ in b by 0.1 mm, far below the tolerance).
+    plane = choose_plane((0.0, 42.0, 20.0, 62.0))
+    x, y = transformer(LONLAT, plane).transform(5.0, 50.0)
+    assert x + 4_321_000.0 == pytest.approx(3_962_799.45, abs=0.005)
+    assert y + 3_210_000.0 == pytest.approx(2_999_718.85, abs=0.005)
+    # The same point through EPSG:3035 itself, whose axes are northing first: areamc's transformer
+    # must still return (easting, northing).
+    out = transform_geometry(Point(5.0, 50.0), transformer(LONLAT, pyproj.CRS.from_epsg(3035)))
+    assert out.x == pytest.approx(3_962_799.45, abs=0.005)
+    assert out.y == pytest.approx(2_999_718.85, abs=0.005)
+
+
+def test_choose_plane__laea__snyder_clarke_1866_worked_example():
+    # Snyder (1987), Appendix A [published; memory, confirmed against pyproj]: LAEA on Clarke 1866,
+    # phi1 = 40N, lambda0 = 100W; 30N 110W -> x = -965 932.11 m, y = -1 056 814.93 m.
+    # An extent centred on 40N 100W makes areamc build its LAEA there; only the ellipsoid of that
+    # very CRS definition is swapped for Clarke 1866 to match the handbook.
+    plane = choose_plane((-110.0, 30.0, -90.0, 50.0))
+    assert "+datum=WGS84" in plane.srs
+    clarke = pyproj.CRS.from_proj4(plane.srs.replace("+datum=WGS84", "+ellps=clrk66"))
+    assert clarke.ellipsoid.semi_major_metre == 6_378_206.4
+    source = pyproj.CRS.from_proj4("+proj=longlat +ellps=clrk66 +no_defs +type=crs")
+    x, y = transformer(source, clarke).transform(-110.0, 30.0)
+    assert x == pytest.approx(-965_932.11, abs=0.005)
+    assert y == pytest.approx(-1_056_814.93, abs=0.005)
+
+
+# --------------------------------------------------------------------------------------------
+# A layer in a projected, non-equal-area CRS (UTM zone 32N)
+# --------------------------------------------------------------------------------------------
+
+
+def test_project_layer__utm_layer__areal_scale(project, geod):
+    # 10 km square on the zone's central meridian (9E, easting 500 000 m) near 47.9N.
+    half = 5_000.0
+    square = box(500_000 - half, 5_300_000 - half, 500_000 + half, 5_300_000 + half)
+    projected = project([square], layer_crs="EPSG:32632")
+    assert projected.plane.chosen and projected.plane.distortion < 1e-6
+    planar = float(planar_area(projected.planar)[0])
+    # Reference: pyproj.Geod on the square densified here every 100 m in UTM and transformed with
+    # pyproj directly; rel 1e-6.
+    dense = shapely.segmentize(square, 100.0)
+    to_lonlat = pyproj.Transformer.from_crs("EPSG:32632", "EPSG:4326", always_xy=True)
+    lon, lat = to_lonlat.transform(*np.asarray(dense.exterior.coords).T)
+    expected = abs(geod.polygon_area_perimeter(lon, lat)[0])
+    assert rel(planar, expected) < 1e-6
+    assert rel(geodesic_area(projected.lonlat[0]), expected) < 1e-6
+    # UTM areas are scaled by the areal scale factor (k0² = 0.9996² = 0.99920016 on the central
+    # meridian); pyproj's get_factors, averaged over the square (midpoints of a 20 x 20 grid),
+    # predicts the ratio. The scale grows as x² away from the meridian, so the mean differs from
+    # the value at the centre by about 2e-7 here; the check at 1e-8 sees that difference.
+    xs = 500_000 - half + (np.arange(20) + 0.5) * (2 * half / 20)
+    gx, gy = np.meshgrid(xs, xs - 500_000 + 5_300_000)
+    glon, glat = to_lonlat.transform(gx.ravel(), gy.ravel())
+    scale = np.asarray(pyproj.Proj("EPSG:32632").get_factors(glon, glat).areal_scale).mean()
+    ratio = square.area / planar
+    assert ratio == pytest.approx(0.9992, abs=1e-5)
+    assert ratio == pytest.approx(scale, rel=1e-8)
+
+
+# --------------------------------------------------------------------------------------------
+# Guards
+# --------------------------------------------------------------------------------------------
+
+
+def test_transform_geometry__non_finite__refused():
+    # The antipode of a Lambert azimuthal plane's centre has no image (PROJ returns inf).
+    plane = choose_plane((-1.0, -1.0, 1.0, 1.0))
+    with pytest.raises(CRSError):
+        transform_geometry(Point(180.0, 0.0), transformer(LONLAT, plane))
+
+
+@pytest.mark.parametrize("step", [0.0, -1.0, float("nan")])
+def test_densify__bad_step(step):
+    with pytest.raises(CRSError):
+        densify(np.array([lonlat_box(EQUATOR_BOX)]), LONLAT, step)
+
+
+def test_densify__geographic_step(project):
+    # 1000 m becomes 1000 / 111 320 degrees (the length of a degree of the equator, common
+    # practice), so no edge of the lon/lat copy is longer than that.
+    projected = project([lonlat_box(MID_LATITUDE_BOX)], densify_m=1000.0)
+    xy = np.asarray(projected.lonlat[0].exterior.coords)
+    steps = np.hypot(*np.diff(xy, axis=0).T)
+    assert steps.max() <= 1000.0 / 111_320.0 + 1e-12
+    assert len(xy) > 4 * 100
