@@ -56,3 +56,61 @@ def deviation(estimate: float, exact: float, stderr: float) -> float:
     if abs(diff) <= 1e-9 * max(abs(exact), abs(estimate), 1.0):
         return 0.0
     return math.copysign(math.inf, diff)
+
+
+def intersection_areas(a, b) -> np.ndarray:
+    """Exact planar areas, m², of the pairwise intersections ``a[i] ∩ b[i]`` (plane metres)."""
+    return np.asarray(shapely.area(shapely.intersection(a, b)), dtype=float)
+
+
+def covered_area(region, zones) -> float:
+    """Exact planar area, m², of ``region ∩ union(zones)`` (plane metres)."""
+    if len(zones) == 0:
+        return 0.0
+    return float(shapely.area(shapely.intersection(region, shapely.union_all(zones))))
+
+
+def multiplicity_areas(zones, *, clip=None, deadline: float | None = None) -> dict[int, float] | None:
+    """Exact planar area, m², covered by exactly k of `zones`, for every k ≥ 1.
+
+    The zones' boundaries (and the clip's) are noded and polygonized into the
+    faces of their planar arrangement; each face lies in a fixed set of
+    zones, found by testing one interior point per face.  Returns None when
+    `deadline` (a ``time.monotonic()`` value) passes between steps: a GEOS
+    call in progress is not interrupted, so the budget is honoured to within
+    one step.
+    """
+    import time
+
+    zones = np.asarray(zones, dtype=object)
+    if len(zones) == 0:
+        return {}
+    lines = list(shapely.boundary(zones))
+    if clip is not None:
+        lines.append(shapely.boundary(clip))
+    noded = shapely.union_all(lines)
+    if deadline is not None and time.monotonic() > deadline:
+        return None
+    faces = np.asarray(shapely.get_parts(shapely.polygonize(shapely.get_parts(noded))), dtype=object)
+    if deadline is not None and time.monotonic() > deadline:
+        return None
+    if len(faces) == 0:
+        return {}
+    probe = shapely.point_on_surface(faces)
+    if clip is not None:
+        keep = shapely.within(probe, clip)
+        faces, probe = faces[keep], probe[keep]
+    tree = shapely.STRtree(zones)
+    face_idx, _ = tree.query(probe, predicate="within")
+    counts = np.bincount(face_idx, minlength=len(faces))
+    areas = shapely.area(faces)
+    out: dict[int, float] = {}
+    for k in np.unique(counts):
+        if k > 0:
+            out[int(k)] = float(areas[counts == k].sum())
+    return out
+
+
+def at_least(exactly: dict[int, float], k: int) -> float:
+    """Area covered by at least `k` zones from exactly-k areas."""
+    return float(sum(a for j, a in exactly.items() if j >= k))

@@ -19,7 +19,7 @@ from typing import Iterable, Sequence
 from .errors import OptionError
 from .units import area_factor
 
-__all__ = ["FORMATS", "Column", "convert_rows", "render", "render_fields", "write_text", "check_output_path", "format_number"]
+__all__ = ["FORMATS", "Column", "convert_rows", "render", "render_fields", "table", "write_text", "check_output_path", "format_number"]
 
 FORMATS = ("table", "csv", "json")
 
@@ -77,6 +77,11 @@ def format_number(value) -> str:
         digits = int(math.floor(math.log10(abs(value)))) + 1
         return f"{value:,.{max(0, 7 - digits)}f}" if digits > 0 else f"{value:.6g}"
     return str(value)
+
+
+def table(rows: Sequence[dict], columns: Sequence[Column], units: str) -> str:
+    """Render rows (areas in m²) as an aligned text table with areas in `units`."""
+    return _table(convert_rows(rows, columns, units), columns, (), ())
 
 
 def _table(rows: list[dict], columns: Sequence[Column], header: Sequence[str], footer: Sequence[str]) -> str:

@@ -17,7 +17,7 @@ from .errors import LayerError, OptionError
 from .load import Layer
 from .project import LONLAT, WGS84, transformer, transform_geometry
 
-__all__ = ["geodesic_circle", "zones_from_points", "DEFAULT_VERTICES"]
+__all__ = ["geodesic_circle", "zones_from_points", "read_zones", "DEFAULT_VERTICES"]
 
 #: Vertices per circle.  An inscribed n-gon misses a fraction of about
 #: (2π/n)²/6 of the circle's area: 1.0e-4 at 256 vertices.
@@ -110,3 +110,30 @@ def _radius(value, layer: Layer, fid: str, field: str) -> float:
             "radii must be positive numbers of metres"
         )
     return radius
+
+
+def read_zones(
+    path: str,
+    *,
+    layer: str | None = None,
+    id_field: str | None = None,
+    input_crs: str | None = None,
+    radius_m: float | None = None,
+    radius_field: str | None = None,
+    vertices: int = DEFAULT_VERTICES,
+) -> Layer:
+    """Read a zone layer: polygons as they are, points as geodesic circles.
+
+    Points need `radius_m` (metres, for all) or `radius_field` (metres, per
+    feature); on a polygon layer a radius is ignored with a warning.
+    """
+    import warnings
+
+    from .load import AreamcWarning, read_layer
+
+    zones = read_layer(path, layer=layer, id_field=id_field, input_crs=input_crs, kind="any")
+    if zones.kind == "point":
+        return zones_from_points(zones, radius_m=radius_m, radius_field=radius_field, vertices=vertices)
+    if radius_m is not None or radius_field is not None:
+        warnings.warn(f"{zones.source}: holds polygons; --radius/--radius-field ignored", AreamcWarning, stacklevel=2)
+    return zones

@@ -9,7 +9,7 @@ import pytest
 from scipy import stats
 
 from areamc.errors import OptionError
-from areamc.estimate import AreaEstimate, StopRule, hit_or_miss, wilson_interval, z_for
+from areamc.estimate import AreaEstimate, StopRule, area_target, hit_or_miss, wilson_interval, z_for
 from areamc.sampling import Box, UniformSampler, child_seed, make_seed, scale_to_box
 
 # A disk well inside the unit square (REFERENCES.md §5 uses the same set): area pi r^2.
@@ -20,6 +20,13 @@ UNIT = Box(0.0, 0.0, 1.0, 1.0)
 
 def disk(x, y):
     return (x - DISK_X) ** 2 + (y - DISK_Y) ** 2 < DISK_R**2
+
+
+def run_rule(box, classify, sampler, stop, *, confidence=0.95, **kwargs):
+    """Drive hit_or_miss with a StopRule the way areamc.area does (budget + area_target)."""
+    return hit_or_miss(
+        box, classify, sampler, budget=stop.budget, done=area_target(stop, box.area, confidence), **kwargs
+    )
 
 
 def wilson_by_quadratic(k, n, z):
@@ -132,8 +139,8 @@ def test_hit_or_miss__coverage__wilson_95():
     root = make_seed(20240601)
     covered = 0
     for r in range(R):
-        run = hit_or_miss(UNIT, disk, UniformSampler(child_seed(root, r)), stop=StopRule(points=n), chunk=n)
-        est = run.estimates[0]
+        run = hit_or_miss(UNIT, disk, UniformSampler(child_seed(root, r)), budget=n, chunk=n)
+        est = run.estimate(0, 0.95)
         covered += est.ci_low <= DISK_AREA <= est.ci_high
     z = stats.norm.ppf(0.975)
     k = np.arange(n + 1)
@@ -154,8 +161,7 @@ def test_hit_or_miss__stderr__inverse_square_root():
     fractions = np.empty((R, len(marks)))
     for r in range(R):
         run = hit_or_miss(
-            UNIT, disk, UniformSampler(child_seed(root, r)), stop=StopRule(points=int(marks[-1])),
-            chunk=int(marks[-1]), trace_every=256,
+            UNIT, disk, UniformSampler(child_seed(root, r)), budget=int(marks[-1]), chunk=int(marks[-1]), trace_every=256
         )
         by_n = {t.points: t.hits[0] for t in run.trace}
         fractions[r] = [by_n[int(m)] / m for m in marks]
@@ -227,8 +233,8 @@ def _half_width(hits, n, box_area):
 def test_hit_or_miss__adaptive__stops_at_first_chunk_meeting_target(rule):
     box = Box(0.0, 0.0, 2.0, 1.0)  # area 2, hit share about 0.19
     chunk = 2000
-    run = hit_or_miss(box, disk, UniformSampler(make_seed(5)), stop=rule, chunk=chunk, trace_every=chunk)
-    est = run.estimates[0]
+    run = run_rule(box, disk, UniformSampler(make_seed(5)), rule, chunk=chunk, trace_every=chunk)
+    est = run.estimate(0, 0.95)
     target = rule.absolute if rule.absolute is not None else rule.relative * est.estimate
     assert run.stopped_early
     assert est.points < rule.max_points and est.points % chunk == 0
@@ -245,8 +251,8 @@ def test_hit_or_miss__adaptive__stops_at_first_chunk_meeting_target(rule):
 
 def test_hit_or_miss__adaptive__cap_reached():
     rule = StopRule(points=None, relative=1e-4, max_points=5000)
-    run = hit_or_miss(UNIT, disk, UniformSampler(make_seed(5)), stop=rule, chunk=1024)
-    est = run.estimates[0]
+    run = run_rule(UNIT, disk, UniformSampler(make_seed(5)), rule, chunk=1024)
+    est = run.estimate(0, 0.95)
     assert not run.stopped_early
     assert est.points == 5000
     assert est.half_width > 1e-4 * est.estimate
@@ -254,8 +260,8 @@ def test_hit_or_miss__adaptive__cap_reached():
 
 def test_hit_or_miss__adaptive__empty_set_never_meets_relative_target():
     rule = StopRule(points=None, relative=0.1, max_points=3000)
-    run = hit_or_miss(Box(2.0, 2.0, 3.0, 3.0), disk, UniformSampler(make_seed(1)), stop=rule, chunk=1000)
-    assert run.estimates[0].hits == 0 and run.estimates[0].points == 3000
+    run = run_rule(Box(2.0, 2.0, 3.0, 3.0), disk, UniformSampler(make_seed(1)), rule, chunk=1000)
+    assert run.hits == (0,) and run.points == 3000
     assert not run.stopped_early
 
 
@@ -272,12 +278,12 @@ def _direct_hits(seed, n, classify, box):
 @pytest.mark.parametrize("chunk", [1, 333, 700, 4096, 65536])
 def test_hit_or_miss__trace__every_k_points_independent_of_chunk(chunk):
     K, n, seed = 700, 5000, 11
-    run = hit_or_miss(UNIT, disk, UniformSampler(make_seed(seed)), stop=StopRule(points=n), chunk=chunk, trace_every=K)
+    run = hit_or_miss(UNIT, disk, UniformSampler(make_seed(seed)), budget=n, chunk=chunk, trace_every=K)
     cumulative = np.cumsum(_direct_hits(seed, n, disk, UNIT))
     assert [t.points for t in run.trace] == list(range(K, n + 1, K))
     assert [t.hits[0] for t in run.trace] == [int(cumulative[m - 1]) for m in range(K, n + 1, K)]
-    assert run.estimates[0].hits == int(cumulative[-1])
-    assert run.estimates[0].points == n
+    assert run.hits == (int(cumulative[-1]),)
+    assert run.points == n and not run.stopped_early
 
 
 def test_hit_or_miss__several_columns():
@@ -285,14 +291,21 @@ def test_hit_or_miss__several_columns():
         return np.column_stack([disk(x, y), x < 0.25])
 
     n, seed = 10_000, 3
-    run = hit_or_miss(UNIT, two, UniformSampler(make_seed(seed)), stop=StopRule(points=n), chunk=4096)
+    run = hit_or_miss(UNIT, two, UniformSampler(make_seed(seed)), budget=n, chunk=4096)
     u = UniformSampler(make_seed(seed)).random(n)
-    assert len(run.estimates) == 2
-    assert run.estimates[0].hits == int(disk(u[:, 0], u[:, 1]).sum())
-    assert run.estimates[1].hits == int((u[:, 0] < 0.25).sum())
+    assert run.hits == (int(disk(u[:, 0], u[:, 1]).sum()), int((u[:, 0] < 0.25).sum()))
+    assert run.estimate(1, 0.95).estimate == pytest.approx(run.hits[1] / n, rel=1e-15)
 
 
-@pytest.mark.parametrize("kwargs", [{"chunk": 0}, {"chunk": -1}, {"trace_every": 0}, {"trace_every": -3}, {"confidence": 1.0}])
+@pytest.mark.parametrize("kwargs", [{"chunk": 0}, {"chunk": -1}, {"trace_every": 0}, {"trace_every": -3}])
 def test_hit_or_miss__invalid_options(kwargs):
     with pytest.raises(OptionError):
-        hit_or_miss(UNIT, disk, UniformSampler(make_seed(1)), stop=StopRule(points=10), **kwargs)
+        hit_or_miss(UNIT, disk, UniformSampler(make_seed(1)), budget=10, **kwargs)
+
+
+def test_area_target__fixed_count_has_no_test():
+    assert area_target(StopRule(points=100), 1.0, 0.95) is None
+    done = area_target(StopRule(points=None, relative=0.1), 1.0, 0.95)
+    # Wilson half-width at 500/1000 is about 0.031 (scipy reference) <= 0.1 * 0.5; at 5/10 it is not.
+    assert done(np.array([500]), 1000) and not done(np.array([5]), 10)
+    assert not done(np.array([500, 0]), 1000)  # every column must meet the target

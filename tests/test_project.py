@@ -317,3 +317,44 @@ def test_densify__geographic_step(project):
     steps = np.hypot(*np.diff(xy, axis=0).T)
     assert steps.max() <= 1000.0 / 111_320.0 + 1e-12
     assert len(xy) > 4 * 100
+
+
+# --------------------------------------------------------------------------------------------
+# Extents that reach the antimeridian
+# --------------------------------------------------------------------------------------------
+
+ANTIMERIDIAN_BUG = (
+    "areamc bug: project.measure_area_distortion centres its test cells on the extent's edges; "
+    "a cell centred on longitude +/-180 straddles the antimeridian, wraps across the seam of a "
+    "global plane and reads a relative area error of about 3.6e4, so EPSG:6933/EPSG:8857 are "
+    "refused (requested) or recorded with that distortion (chosen) for any extent touching +/-180"
+)
+
+
+def test_planar_area__cap_north_of_80__closed_form(project):
+    # REFERENCES.md §2: the cap north of 80N is 3 908 572 761 836.572 m² [computed]; its extent
+    # spans all longitudes, so the tool picks the global cylindrical plane EPSG:6933, in which a
+    # lat/lon box has exactly the quadrangle area (REFERENCES.md §3).
+    projected = project([box(-180.0, 80.0, 180.0, 90.0)])
+    assert projected.plane.label == "EPSG:6933"
+    assert rel(float(planar_area(projected.planar)[0]), NORTH_OF_80_CAP) < 1e-9
+    assert rel(geodesic_area(projected.lonlat[0]), NORTH_OF_80_CAP) < 1e-6
+
+
+@pytest.mark.xfail(reason=ANTIMERIDIAN_BUG, strict=True)
+@pytest.mark.parametrize("crs", ["EPSG:6933", "EPSG:8857"])
+@pytest.mark.parametrize("bounds", [(-180.0, -80.0, 180.0, 80.0), (170.0, -60.0, 180.0, -50.0)], ids=["global", "east_180"])
+def test_resolve_plane__global_plane__extent_touching_antimeridian(bounds, crs):
+    # EPSG:6933 and EPSG:8857 are equal-area everywhere (pyproj get_factors |s - 1| <= 5e-10,
+    # REFERENCES.md §3), so neither may be refused over any extent.
+    scale = pyproj.Proj(crs).get_factors(np.array([-179.99, 179.99]), np.array([bounds[1], bounds[3]])).areal_scale
+    assert np.all(np.abs(np.asarray(scale) - 1) <= 5e-10)
+    plane = resolve_plane(bounds, crs)
+    assert plane.distortion < 1e-6
+
+
+@pytest.mark.xfail(reason=ANTIMERIDIAN_BUG, strict=True)
+def test_project_layer__global_extent__distortion_recorded(project):
+    projected = project([box(-180.0, -60.0, 180.0, 60.0)])
+    assert projected.plane.label == "EPSG:6933"
+    assert projected.plane.distortion < 1e-6

@@ -13,12 +13,12 @@ import warnings
 from .. import __version__
 from ..errors import AreamcError, InputError
 from ..load import AreamcWarning
-from . import area, inspect
+from . import area, coverage, inspect, overlap
 from .common import Parser
 
 __all__ = ["main", "build_parser"]
 
-COMMANDS = (area, inspect)
+COMMANDS = (area, overlap, coverage, inspect)
 
 
 def build_parser() -> Parser:

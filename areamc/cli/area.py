@@ -6,7 +6,7 @@ import argparse
 
 from .. import __version__
 from ..area import estimate_areas
-from ..estimate import DEFAULT_CHUNK, DEFAULT_MAX_POINTS, DEFAULT_POINTS, AreaEstimate, StopRule
+from ..estimate import AreaEstimate
 from ..exact import FLAG_Z
 from ..load import read_layer
 from ..output import Column, render, write_text
@@ -15,13 +15,12 @@ from .common import (
     add_layer_options,
     add_output_options,
     add_plane_options,
+    add_sampling_options,
     check_outputs,
-    confidence_level,
     emit,
     output_format,
-    non_negative_int,
-    parse_tolerance,
     positive_int,
+    stop_rule,
 )
 from .progress import ProgressBar
 
@@ -47,33 +46,6 @@ TRACE_COLUMNS = (
     Column("ci_low", area=True),
     Column("ci_high", area=True),
 )
-
-
-def add_sampling_options(parser: argparse.ArgumentParser) -> None:
-    """Point budget, precision target, confidence, seed and chunking (shared by estimating commands)."""
-    parser.add_argument("--points", "-n", type=positive_int, metavar="N",
-                        help=f"points per estimate (default {DEFAULT_POINTS:,})")
-    parser.add_argument("--tolerance", "-t", metavar="TOL",
-                        help="stop at the first chunk whose interval half-width is at most TOL "
-                        "(an area in --units, or a percentage of the estimate such as 0.5%%)")
-    parser.add_argument("--max-points", type=positive_int, default=DEFAULT_MAX_POINTS, metavar="N",
-                        help=f"cap on points per estimate with --tolerance (default {DEFAULT_MAX_POINTS:,})")
-    parser.add_argument("--confidence", "-c", type=confidence_level, default=0.95, metavar="LEVEL",
-                        help="confidence level of the intervals, in (0, 1) (default 0.95)")
-    parser.add_argument("--seed", "-s", type=non_negative_int, metavar="INT",
-                        help="seed for reproducible runs (default: fresh, recorded in the output)")
-    parser.add_argument("--chunk", type=positive_int, default=DEFAULT_CHUNK, metavar="N",
-                        help=f"points per chunk, bounds memory; results do not depend on it (default {DEFAULT_CHUNK})")
-
-
-def stop_rule(args) -> StopRule:
-    """Build the stop rule from ``--points`` / ``--tolerance`` / ``--max-points``."""
-    if args.tolerance is None:
-        return StopRule(points=args.points or DEFAULT_POINTS, max_points=args.max_points)
-    if args.points is not None:
-        return StopRule(points=args.points, absolute=1.0)  # raises: the two exclude each other
-    absolute, relative = parse_tolerance(args.tolerance, args.units)
-    return StopRule(points=None, absolute=absolute, relative=relative, max_points=args.max_points)
 
 
 def add_parser(sub) -> None:
@@ -136,7 +108,8 @@ def run(args) -> int:
         )
     if args.trace:
         write_text(_trace_csv(report, args.units), args.trace)
-    emit(args, rows, COLUMNS if output_format(args) == "table" else ALL_AREA_FIELDS, metadata, header, footer)
+    emit(args, rows, COLUMNS if output_format(args) == "table" else ALL_AREA_FIELDS, metadata, header, footer,
+         features=(layer.geometries, layer.crs, "areas"))
     return 0
 
 

@@ -7,9 +7,12 @@ import math
 import sys
 
 from ..errors import OptionError
-from ..output import FORMATS, check_output_path, render, write_text
+from ..estimate import DEFAULT_CHUNK, DEFAULT_MAX_POINTS, DEFAULT_POINTS, StopRule
+from ..output import FORMATS, check_output_path, convert_rows, render, write_text
 from ..project import DEFAULT_DENSIFY_M
-from ..units import AREA_UNITS, area_factor
+from ..units import AREA_UNITS, area_factor, parse_distance
+from ..vector import vector_driver, write_features
+from ..zones import DEFAULT_VERTICES, read_zones
 
 __all__ = [
     "Parser",
@@ -20,6 +23,10 @@ __all__ = [
     "positive_float",
     "parse_tolerance",
     "emit",
+    "add_zone_options",
+    "add_sampling_options",
+    "stop_rule",
+    "zone_layer",
 ]
 
 
@@ -95,6 +102,33 @@ def parse_tolerance(text: str, units: str) -> tuple[float | None, float | None]:
     return value * area_factor(units), None
 
 
+def add_sampling_options(parser: argparse.ArgumentParser) -> None:
+    """Point budget, precision target, confidence, seed and chunking (shared by estimating commands)."""
+    parser.add_argument("--points", "-n", type=positive_int, metavar="N",
+                        help=f"points per estimate (default {DEFAULT_POINTS:,})")
+    parser.add_argument("--tolerance", "-t", metavar="TOL",
+                        help="stop at the first chunk whose interval half-width is at most TOL "
+                        "(an area in --units, or a percentage of the estimate such as 0.5%%)")
+    parser.add_argument("--max-points", type=positive_int, default=DEFAULT_MAX_POINTS, metavar="N",
+                        help=f"cap on points per estimate with --tolerance (default {DEFAULT_MAX_POINTS:,})")
+    parser.add_argument("--confidence", "-c", type=confidence_level, default=0.95, metavar="LEVEL",
+                        help="confidence level of the intervals, in (0, 1) (default 0.95)")
+    parser.add_argument("--seed", "-s", type=non_negative_int, metavar="INT",
+                        help="seed for reproducible runs (default: fresh, recorded in the output)")
+    parser.add_argument("--chunk", type=positive_int, default=DEFAULT_CHUNK, metavar="N",
+                        help=f"points per chunk, bounds memory; results do not depend on it (default {DEFAULT_CHUNK})")
+
+
+def stop_rule(args) -> StopRule:
+    """Build the stop rule from ``--points`` / ``--tolerance`` / ``--max-points``."""
+    if args.tolerance is None:
+        return StopRule(points=args.points or DEFAULT_POINTS, max_points=args.max_points)
+    if args.points is not None:
+        return StopRule(points=args.points, absolute=1.0)  # raises: the two exclude each other
+    absolute, relative = parse_tolerance(args.tolerance, args.units)
+    return StopRule(points=None, absolute=absolute, relative=relative, max_points=args.max_points)
+
+
 def add_layer_options(parser: argparse.ArgumentParser, *, prefix: str = "", what: str = "the layer") -> None:
     """``--layer``, ``--id-field`` and ``--input-crs`` for one input file."""
     parser.add_argument(f"--{prefix}layer", metavar="NAME", help=f"layer of {what}, for files with several layers (default: the first)")
@@ -112,7 +146,8 @@ def add_plane_options(parser: argparse.ArgumentParser) -> None:
 def add_output_options(parser: argparse.ArgumentParser) -> None:
     """``--format``, ``--output``, ``--units``, ``--quiet``, ``--verbose``."""
     parser.add_argument("--format", choices=FORMATS, help="output format (default: from --output's extension, else table)")
-    parser.add_argument("--output", "-o", metavar="PATH", help="write results here instead of stdout")
+    parser.add_argument("--output", "-o", metavar="PATH",
+                        help="write results here instead of stdout (.csv, .json, or .gpkg/.geojson for features)")
     parser.add_argument("--units", default="m2", choices=list(AREA_UNITS), help="area unit of the output (default m2)")
     parser.add_argument("--quiet", "-q", action="store_true", help="no progress bar and no notes on stderr")
     parser.add_argument("--verbose", "-v", action="store_true", help="show tracebacks of errors")
@@ -129,8 +164,32 @@ def output_format(args) -> str:
     return "table"
 
 
-def emit(args, rows, columns, metadata, header=(), footer=()) -> None:
-    """Render rows per the output options and write them to ``--output`` or stdout."""
+def add_zone_options(parser: argparse.ArgumentParser) -> None:
+    """``--radius``, ``--radius-field``, ``--circle-vertices`` for zones given as points."""
+    parser.add_argument("--radius", metavar="DISTANCE", help="reach of every facility point, with a unit: 5km, 800m, 3mi")
+    parser.add_argument("--radius-field", metavar="FIELD", help="attribute with each facility point's reach in metres")
+    parser.add_argument("--circle-vertices", type=positive_int, default=DEFAULT_VERTICES, metavar="N",
+                        help=f"vertices of each geodesic circle (default {DEFAULT_VERTICES})")
+
+
+def zone_layer(args, path: str, layer: str | None, id_field: str | None, input_crs: str | None):
+    """Read a zone layer with the zone options of `args` (points become geodesic circles)."""
+    radius = parse_distance(args.radius, "--radius") if args.radius is not None else None
+    return read_zones(path, layer=layer, id_field=id_field, input_crs=input_crs, radius_m=radius,
+                      radius_field=args.radius_field, vertices=args.circle_vertices)
+
+
+def emit(args, rows, columns, metadata, header=(), footer=(), features=None) -> None:
+    """Render rows per the output options and write them to ``--output`` or stdout.
+
+    `features` is ``(geometries, crs, layer_name)`` for a GeoPackage/GeoJSON ``--output``.
+    """
+    if vector_driver(args.output):
+        if features is None:
+            raise OptionError(f"--output {args.output}: this command writes no features; use .csv or .json")
+        geoms, crs, layer = features
+        write_features(args.output, geoms, convert_rows(rows, columns, args.units), crs, layer)
+        return
     text = render(rows, columns, fmt=output_format(args), units=args.units, metadata=metadata, header=header, footer=footer)
     if args.output:
         write_text(text, args.output)

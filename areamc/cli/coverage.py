@@ -1,0 +1,163 @@
+"""``areamc coverage REGIONS ZONES``: share of each region covered by at least k zones."""
+
+from __future__ import annotations
+
+import argparse
+
+from .. import __version__
+from ..coverage import estimate_coverage
+from ..errors import OptionError
+from ..exact import FLAG_Z
+from ..load import read_layer
+from ..output import Column
+from ..project import project_layers
+from ..sequential import check_claim
+from .common import (
+    add_layer_options,
+    add_output_options,
+    add_plane_options,
+    add_sampling_options,
+    add_zone_options,
+    check_outputs,
+    emit,
+    output_format,
+    positive_float,
+    stop_rule,
+    zone_layer,
+)
+
+COLUMNS = (
+    Column("id"),
+    Column("at_least", "k"),
+    Column("share", spec=".4f"),
+    Column("stderr", spec=".4f"),
+    Column("ci_low", spec=".4f"),
+    Column("ci_high", spec=".4f"),
+    Column("uncovered", area=True),
+    Column("points"),
+    Column("exact_share", spec=".4f"),
+    Column("z", spec=".2f"),
+    Column("flagged", "flag"),
+)
+CLAIM_COLUMNS = (Column("claim", spec=".4g"), Column("verdict"))
+ALL_FIELDS = COLUMNS + (
+    Column("region_area", area=True),
+    Column("covered", area=True),
+    Column("uncovered_ci_low", area=True),
+    Column("uncovered_ci_high", area=True),
+)
+
+
+def _k(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number of at least 1, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"k must be at least 1, got {text!r}")
+    return value
+
+
+def _claim(text: str) -> float:
+    try:
+        return check_claim(float(text))
+    except (ValueError, OptionError):
+        raise argparse.ArgumentTypeError(f"expected a share in (0, 1], got {text!r}") from None
+
+
+def add_parser(sub) -> None:
+    p = sub.add_parser("coverage", help="estimate the share of each region covered by zones", description=__doc__)
+    p.add_argument("regions", metavar="REGIONS", help="polygon layer of regions (districts)")
+    p.add_argument("zones", metavar="ZONES", help="zone layer (polygons, or points with --radius)")
+    add_layer_options(p, what="REGIONS")
+    add_layer_options(p, prefix="zones-", what="ZONES")
+    add_zone_options(p)
+    add_plane_options(p)
+    add_sampling_options(p)
+    p.add_argument("--at-least", type=_k, action="append", metavar="K",
+                   help="report the share covered by at least K zones; repeat for several (default 1)")
+    p.add_argument("--claim", type=_claim, metavar="SHARE",
+                   help="check the claim that each share is at least SHARE, in (0, 1]")
+    p.add_argument("--fail-on-shortfall", action="store_true", help="exit status 1 when any region falls short of --claim")
+    p.add_argument("--no-exact", action="store_true", help="skip shapely's exact shares")
+    p.add_argument("--exact-budget", type=positive_float, default=10.0, metavar="SECONDS",
+                   help="time allowed per region for exact shares at k >= 2 (default 10)")
+    add_output_options(p)
+    p.set_defaults(run=run)
+
+
+def _share_tolerance(args) -> float | None:
+    """``--tolerance`` for shares: ``0.5%`` or ``0.005`` both mean a half-width of 0.005."""
+    if args.tolerance is None:
+        return None
+    text = args.tolerance.strip()
+    try:
+        value = float(text[:-1]) / 100 if text.endswith("%") else float(text)
+    except ValueError:
+        raise OptionError(f"--tolerance: expected a share such as 0.005 or 0.5%, got {args.tolerance!r}") from None
+    if not 0 < value < 1:
+        raise OptionError(f"--tolerance: a share tolerance must lie in (0, 1), got {args.tolerance!r}")
+    return value
+
+
+def run(args) -> int:
+    tolerance = _share_tolerance(args)
+    if args.fail_on_shortfall and args.claim is None:
+        raise OptionError("--fail-on-shortfall needs --claim")
+    saved, args.tolerance = args.tolerance, None
+    stop = stop_rule(args)
+    args.tolerance = saved
+    if tolerance is not None and args.points is None:
+        from ..estimate import StopRule
+
+        stop = StopRule(points=args.max_points)
+    check_outputs(args, [args.regions, args.zones])
+    regions = read_layer(args.regions, layer=args.layer, id_field=args.id_field, input_crs=args.input_crs)
+    zones = zone_layer(args, args.zones, args.zones_layer, args.zones_id_field, args.zones_input_crs)
+    projected = project_layers([regions, zones], crs=args.crs, densify_m=args.densify)
+    report = estimate_coverage(
+        projected[0],
+        projected[1],
+        ks=args.at_least or (1,),
+        stop=stop,
+        share_tolerance=tolerance,
+        confidence=args.confidence,
+        claim=args.claim,
+        seed=args.seed,
+        chunk=args.chunk,
+        exact=not args.no_exact,
+        exact_budget_s=args.exact_budget,
+    )
+    rows = [r.to_dict() for r in report.rows]
+    metadata = {
+        "tool": "areamc",
+        "version": __version__,
+        "command": " ".join(args.argv),
+        "inputs": [{"path": l.path, "layer": l.layer, "crs": l.crs.to_string(), "features": len(l)} for l in (regions, zones)],
+        **report.metadata(),
+    }
+    method = "confidence sequences (valid under early stopping)" if args.claim is not None else "Wilson intervals"
+    header = [
+        f"areamc coverage: {regions.path} ({regions.layer}, {len(regions)} regions) by {zones.path} ({zones.layer}, {len(zones)} zones)",
+        f"equal-area plane: {report.plane.label}; {report.confidence:.4g} {method}; seed {report.seed_entropy}; units {args.units}",
+        "",
+    ]
+    footer = [""]
+    if args.claim is not None:
+        short = sum(r.verdict == "falls short" for r in report.rows)
+        undecided = sum(r.verdict == "undecided" for r in report.rows)
+        footer.append(f"claim: share >= {args.claim:g}: {len(rows) - short - undecided} meet, {short} fall short, "
+                      f"{undecided} undecided at confidence {report.confidence:g}")
+    flagged = sum(r.flagged for r in report.rows)
+    footer.append(f"{flagged} row(s) flagged: more than {FLAG_Z:g} standard errors from the exact share" if flagged
+                  else f"no estimate deviates from its exact share by more than {FLAG_Z:g} standard errors")
+    not_done = sorted({rid for rid, s in report.exact_status.items() if s != "computed"})
+    if not_done and not args.no_exact:
+        footer.append(f"exact shares for k >= 2 not computed within --exact-budget for: {', '.join(not_done)}")
+    columns = COLUMNS + (CLAIM_COLUMNS if args.claim is not None else ())
+    if output_format(args) != "table":
+        columns = ALL_FIELDS + CLAIM_COLUMNS
+    by_id = dict(zip(regions.ids, regions.geometries))
+    geoms = [by_id[r.id] for r in report.rows] if args.output else None
+    emit(args, rows, columns, metadata, header, footer, features=(geoms, regions.crs, "coverage"))
+    return 1 if args.fail_on_shortfall and report.shortfall else 0

@@ -1,0 +1,70 @@
+"""Write result rows as features (GeoPackage or GeoJSON) with fiona, atomically.
+
+The geometries are given in the CRS they should be written in (the input
+layer's CRS); rows become attributes, with areas converted to the output unit
+by :func:`areamc.output.convert_rows` before they arrive here.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+
+import fiona
+import pyproj
+import shapely
+from fiona.crs import CRS as FionaCRS
+
+from .errors import OptionError
+
+__all__ = ["VECTOR_DRIVERS", "vector_driver", "write_features"]
+
+VECTOR_DRIVERS = {".gpkg": "GPKG", ".geojson": "GeoJSON"}
+
+
+def vector_driver(path: str | None) -> str | None:
+    """The fiona driver for an output path's extension, or None for a text output."""
+    if not path:
+        return None
+    return VECTOR_DRIVERS.get(os.path.splitext(path)[1].lower())
+
+
+def _field_type(values) -> str:
+    kinds = {type(v) for v in values if v is not None}
+    if kinds <= {bool}:
+        return "int" if kinds else "float"
+    if kinds <= {int, bool}:
+        return "int"
+    if kinds <= {int, float, bool}:
+        return "float"
+    return "str"
+
+
+def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, layer: str) -> None:
+    """Write `rows` as attributes of `geometries` (shapely, in `crs`) to a GeoPackage or GeoJSON file.
+
+    The file is written under a temporary name beside `path` and renamed into
+    place, so a failure leaves no partial file.
+    """
+    driver = vector_driver(path)
+    if driver is None:
+        raise OptionError(f"--output {path}: not a GeoPackage (.gpkg) or GeoJSON (.geojson) path")
+    fields = list(rows[0]) if rows else []
+    types = {f: _field_type([r.get(f) for r in rows]) for f in fields}
+    schema = {"geometry": "Unknown", "properties": {f: types[f] for f in fields}}
+    folder = os.path.dirname(os.path.abspath(path))
+    suffix = os.path.splitext(path)[1]
+    fd, tmp = tempfile.mkstemp(prefix=".areamc-", suffix=suffix, dir=folder)
+    os.close(fd)
+    os.unlink(tmp)
+    try:
+        with fiona.open(tmp, "w", driver=driver, schema=schema, crs=FionaCRS.from_wkt(crs.to_wkt()), layer=layer) as dst:
+            for geom, row in zip(geometries, rows):
+                props = {f: (int(v) if isinstance(v, bool) else v) for f, v in row.items()}
+                dst.write({"geometry": shapely.geometry.mapping(geom), "properties": props})
+        os.replace(tmp, path)
+    except BaseException:
+        for leftover in (tmp, tmp + "-wal", tmp + "-shm"):
+            if os.path.exists(leftover):
+                os.unlink(leftover)
+        raise

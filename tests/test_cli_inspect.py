@@ -1,0 +1,327 @@
+"""Command-line tests of ``areamc inspect``: what it reports about each sample file, and bad input.
+
+Expected values come from outside areamc: the layer's contents are read here
+with fiona, geodesic totals come from ``pyproj.Geod(ellps="WGS84")``
+(Karney 2013, "Algorithms for geodesics", J. Geodesy 87:43-55) on the file's
+own geometry densified here with shapely, and planar totals from shapely in
+the plane the tool names, reprojected here with pyproj.  The sample data is
+invented and none of its numbers are hard-coded.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import json
+import os
+import shutil
+import subprocess
+import sys
+import warnings
+from collections import Counter
+from pathlib import Path
+
+import fiona
+import numpy as np
+import pyproj
+import pytest
+import shapely
+from shapely.geometry import LineString, Polygon, box, mapping, shape
+
+from areamc.cli import main
+from areamc.load import AreamcWarning
+
+ROOT = Path(__file__).resolve().parents[1]
+SAMPLE = ROOT / "sample_data"
+GPKG = SAMPLE / "vale_county.gpkg"
+SHP = SAMPLE / "vale_districts.shp"
+GEOJSON = SAMPLE / "vale_districts.geojson"
+UTM = SAMPLE / "vale_reserves_utm32n.gpkg"
+
+#: Every sample vector file and layer, polygons and points.
+SAMPLE_LAYERS = [
+    pytest.param(GPKG, "districts", id="gpkg-districts"),
+    pytest.param(GPKG, "service_zones", id="gpkg-service_zones"),
+    pytest.param(GPKG, "clinics", id="gpkg-clinics-points"),
+    pytest.param(GPKG, "blocks", id="gpkg-blocks"),
+    pytest.param(SHP, None, id="shp"),
+    pytest.param(GEOJSON, None, id="geojson"),
+    pytest.param(UTM, None, id="utm32n-gpkg"),
+]
+
+#: WGS84 ellipsoid, a = 6 378 137 m, 1/f = 298.257 223 563 (NIMA TR8350.2), built here on purpose.
+GEOD = pyproj.Geod(ellps="WGS84")
+#: Metres per degree to turn the 1000 m densify step into degrees (common practice: one degree
+#: of arc on the equator is about 111 320 m).
+METRES_PER_DEGREE = 111_320.0
+#: Square metres per hectare and per km² (SI); per acre, NIST Handbook 44, Appendix C.
+UNIT_M2 = {"ha": 1.0e4, "km2": 1.0e6, "acre": 4046.8564224}
+
+_script = shutil.which("areamc", path=os.path.dirname(sys.executable)) or shutil.which("areamc")
+AREAMC = [_script] if _script else [sys.executable, "-c", "import sys; from areamc.cli import main; sys.exit(main())"]
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def run_main(argv, capsys):
+    """Run ``areamc.cli.main(argv)`` in-process with a fresh process's warning filters."""
+    capsys.readouterr()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DeprecationWarning)
+        warnings.simplefilter("ignore", PendingDeprecationWarning)
+        warnings.simplefilter("always", AreamcWarning)
+        status = main([str(a) for a in argv])
+    out, err = capsys.readouterr()
+    return status, out, err
+
+
+def inspect_json(argv, capsys) -> dict:
+    status, out, err = run_main(["inspect", *argv, "--format", "json"], capsys)
+    assert status == 0, err
+    doc = json.loads(out)
+    assert len(doc["results"]) == 1
+    return doc["results"][0]
+
+
+def run_cli(*args, module: bool = False) -> subprocess.CompletedProcess:
+    cmd = [sys.executable, "-m", "areamc"] if module else list(AREAMC)
+    return subprocess.run([*cmd, *map(str, args)], capture_output=True, text=True, timeout=120)
+
+
+def reproject(geom, trans: pyproj.Transformer):
+    """Apply a pyproj transformer to every coordinate of a shapely geometry."""
+    return shapely.transform(geom, lambda xy: np.column_stack(trans.transform(xy[:, 0], xy[:, 1])))
+
+
+def read_reference(path, layer=None, step_m: float = 1000.0) -> dict:
+    """Read a layer with fiona and derive, independently of areamc, what inspect should say."""
+    with fiona.open(path, layer=layer) as src:
+        crs = pyproj.CRS.from_wkt(src.crs_wkt)
+        geoms = [shape(f.geometry) for f in src]
+        name = src.name
+    ref = {
+        "layer": name,
+        "crs": crs,
+        "features": len(geoms),
+        "types": dict(Counter(g.geom_type for g in geoms)),
+        "extent": tuple(shapely.total_bounds(geoms)),
+        "polygonal": all(g.geom_type in ("Polygon", "MultiPolygon") for g in geoms),
+    }
+    step = step_m / METRES_PER_DEGREE if crs.is_geographic else step_m
+    dense = [shapely.segmentize(g, step) for g in geoms] if ref["polygonal"] else geoms
+    to_lonlat = pyproj.Transformer.from_crs(crs, "EPSG:4326", always_xy=True)
+    lonlat = dense if crs.is_geographic else [reproject(g, to_lonlat) for g in dense]
+    ref["dense"], ref["lonlat"] = dense, lonlat
+    ref["extent_lonlat"] = tuple(shapely.total_bounds(lonlat))
+    if ref["polygonal"]:
+        ref["geodesic_total"] = sum(geod_area(g) for g in lonlat)
+    return ref
+
+
+def geod_area(geom_lonlat) -> float:
+    """WGS84 area of a lon/lat (Multi)Polygon: |shell| minus |holes|, each ring by
+    pyproj.Geod.geometry_area_perimeter (Karney 2013)."""
+    total = 0.0
+    for poly in shapely.get_parts(geom_lonlat):
+        shell = abs(GEOD.geometry_area_perimeter(Polygon(poly.exterior))[0])
+        holes = sum(abs(GEOD.geometry_area_perimeter(Polygon(ring))[0]) for ring in poly.interiors)
+        total += shell - holes
+    return total
+
+
+def rel(a: float, b: float) -> float:
+    return abs(a - b) / abs(b)
+
+
+def fingerprint(folder: Path) -> dict:
+    return {
+        p.name: (hashlib.sha256(p.read_bytes()).hexdigest(), p.stat().st_mtime_ns)
+        for p in sorted(folder.iterdir())
+        if p.is_file()
+    }
+
+
+def assert_one_line_error(status, out, err, *needles):
+    assert status == 2, (status, err)
+    assert out == ""
+    assert "Traceback" not in err
+    lines = err.strip().splitlines()
+    assert len(lines) == 1, err
+    assert lines[0].startswith("areamc: error:"), lines[0]
+    for needle in needles:
+        assert str(needle) in lines[0], (needle, lines[0])
+
+
+def check_info(info: dict, path, layer) -> None:
+    """What every inspect record must say, against the file read independently."""
+    ref = read_reference(path, layer)
+    assert info["path"] == str(path)
+    assert info["layers"] == fiona.listlayers(path)
+    assert info["layer"] == ref["layer"]
+    assert info["features"] == ref["features"]
+    assert info["geometry_types"] == ref["types"]
+    assert pyproj.CRS.from_user_input(info["crs"]).equals(ref["crs"])
+    assert info["extent"] == pytest.approx(ref["extent"], abs=1e-6)  # rounded to 6 decimals
+    assert info["extent_lonlat"] == pytest.approx(ref["extent_lonlat"], abs=1e-6)
+    assert info["invalid"] == 0 and info["empty"] == 0  # the sample data is clean
+    plane = pyproj.CRS.from_user_input(info["equal_area_crs"])
+    assert plane.is_projected
+    assert 0 <= info["area_distortion"] < 1e-6
+    if ref["polygonal"]:
+        assert info["kind"] == "polygons"
+        # Total geodesic area: pyproj.Geod (Karney 2013) summed over the file's features.
+        assert rel(info["geodesic_total"], ref["geodesic_total"]) < 1e-9
+        # Total planar area: shapely in the named plane, reprojected here with pyproj.
+        to_plane = pyproj.Transformer.from_crs(ref["crs"], plane, always_xy=True)
+        planar = sum(float(shapely.area(reproject(g, to_plane))) for g in ref["dense"])
+        assert rel(info["exact_planar_total"], planar) < 1e-9
+        assert rel(info["exact_planar_total"], info["geodesic_total"]) < 1e-6
+    else:
+        assert info["kind"] == "points"
+        assert info["exact_planar_total"] is None and info["geodesic_total"] is None
+
+
+# --------------------------------------------------------------------------- every sample file
+
+
+@pytest.mark.parametrize("path, layer", SAMPLE_LAYERS)
+def test_inspect_every_sample_layer(capsys, path, layer):
+    info = inspect_json([path, *(["--layer", layer] if layer else [])], capsys)
+    check_info(info, path, layer)
+
+
+def test_inspect_default_layer_is_the_first(capsys):
+    info = inspect_json([GPKG], capsys)
+    assert info["layer"] == fiona.listlayers(GPKG)[0]
+
+
+def test_inspect_utm_file_end_to_end():
+    proc = run_cli("inspect", UTM, "--format", "json")
+    assert proc.returncode == 0, proc.stderr
+    doc = json.loads(proc.stdout)
+    assert doc["tool"] == "areamc" and doc["units"] == "m2"
+    check_info(doc["results"][0], UTM, None)
+
+
+def test_inspect_point_layer_with_python_dash_m():
+    proc = run_cli("inspect", GPKG, "--layer", "clinics", "--format", "json", module=True)
+    assert proc.returncode == 0, proc.stderr
+    check_info(json.loads(proc.stdout)["results"][0], GPKG, "clinics")
+
+
+def test_inspect_table_names_the_totals(capsys):
+    status, out, err = run_main(["inspect", GPKG, "--layer", "districts", "--units", "km2"], capsys)
+    assert status == 0, err
+    lines = dict(line.split(":", 1) for line in out.splitlines() if ":" in line)
+    assert lines["layer"].strip() == "districts"
+    assert lines["features"].strip() == str(read_reference(GPKG, "districts")["features"])
+    total = lines["total geodesic area"].strip()
+    assert total.endswith(" km2")
+    expected_km2 = read_reference(GPKG, "districts")["geodesic_total"] / 1e6
+    assert float(total.split()[0].replace(",", "")) == pytest.approx(expected_km2, rel=1e-5)  # 6 figures shown
+
+
+@pytest.mark.parametrize("unit", sorted(UNIT_M2))
+def test_inspect_units(capsys, unit):
+    base = inspect_json([UTM], capsys)
+    other = inspect_json([UTM, "--units", unit], capsys)
+    for key in ("exact_planar_total", "geodesic_total"):
+        assert other[key] == pytest.approx(base[key] / UNIT_M2[unit], rel=1e-12)  # SI / NIST HB44 App. C
+
+
+def test_inspect_csv_has_the_json_fields(capsys):
+    info = inspect_json([SHP], capsys)
+    status, out, err = run_main(["inspect", SHP, "--format", "csv"], capsys)
+    assert status == 0, err
+    rows = list(csv.DictReader(io.StringIO(out)))
+    assert len(rows) == 1
+    assert list(rows[0]) == list(info)
+    assert float(rows[0]["geodesic_total"]) == info["geodesic_total"]
+    assert int(rows[0]["features"]) == info["features"]
+
+
+def test_inspect_output_file_format_from_extension(tmp_path, capsys):
+    target = tmp_path / "info.json"
+    status, out, err = run_main(["inspect", GEOJSON, "--output", target], capsys)
+    assert status == 0, err
+    assert out == ""
+    info = json.loads(target.read_text())["results"][0]
+    assert rel(info["geodesic_total"], read_reference(GEOJSON)["geodesic_total"]) < 1e-9
+    assert [p.name for p in tmp_path.iterdir()] == ["info.json"]
+
+
+def test_inspect_counts_repaired_and_empty_geometries(tmp_path, capsys):
+    path = tmp_path / "messy.geojson"
+    bow = Polygon([(10.30, 47.10), (10.36, 47.16), (10.36, 47.10), (10.30, 47.16), (10.30, 47.10)])
+    with fiona.open(path, "w", driver="GeoJSON", crs="EPSG:4326",
+                    schema={"geometry": "Polygon", "properties": {"name": "str"}}) as dst:
+        dst.write({"geometry": mapping(box(10.40, 47.10, 10.46, 47.15)), "properties": {"name": "square"}})
+        dst.write({"geometry": mapping(bow), "properties": {"name": "bowtie"}})
+        dst.write({"geometry": None, "properties": {"name": "nothing"}})
+    status, out, err = run_main(["inspect", path, "--format", "json"], capsys)
+    assert status == 0, err
+    info = json.loads(out)["results"][0]
+    assert info["features"] == 3 and info["invalid"] == 1 and info["empty"] == 1
+    assert "make_valid" in err and "empty" in err
+    # Geodesic total of the square and the make_valid (GEOS) repair of the bow-tie, by pyproj.Geod.
+    step = 1000 / METRES_PER_DEGREE
+    expected = geod_area(shapely.segmentize(box(10.40, 47.10, 10.46, 47.15), step)) + geod_area(
+        shapely.segmentize(shapely.make_valid(bow), step)
+    )
+    assert rel(info["geodesic_total"], expected) < 1e-9
+
+
+# --------------------------------------------------------------------------- bad input
+
+
+@pytest.fixture(scope="module")
+def bad_files(tmp_path_factory) -> dict:
+    folder = tmp_path_factory.mktemp("inspect_bad")
+    fake = folder / "fake.gpkg"
+    fake.write_text("plain text, not a GeoPackage\n")
+    lines = folder / "lines.geojson"
+    with fiona.open(lines, "w", driver="GeoJSON", crs="EPSG:4326",
+                    schema={"geometry": "LineString", "properties": {"name": "str"}}) as dst:
+        dst.write({"geometry": mapping(LineString([(10.2, 47.1), (10.4, 47.3)])), "properties": {"name": "l1"}})
+    nocrs = folder / "nocrs.shp"
+    with fiona.open(nocrs, "w", driver="ESRI Shapefile",
+                    schema={"geometry": "Polygon", "properties": {"name": "str"}}) as dst:  # no crs: no .prj
+        dst.write({"geometry": mapping(box(10.2, 47.1, 10.3, 47.2)), "properties": {"name": "a"}})
+    gpkg = folder / "county_copy.gpkg"
+    shutil.copyfile(GPKG, gpkg)
+    return {"folder": folder, "fake": fake, "lines": lines, "nocrs": nocrs, "gpkg": gpkg,
+            "missing": folder / "missing.gpkg"}
+
+
+BAD_INSPECT_CASES = [
+    ("missing-file", ["{missing}"], ["{missing}"]),
+    ("text-renamed-gpkg", ["{fake}"], ["{fake}"]),
+    ("unknown-layer", ["{gpkg}", "--layer", "no_such_layer"], ["{gpkg}", "no_such_layer"]),
+    ("linestrings", ["{lines}"], ["{lines}"]),
+    ("no-crs", ["{nocrs}"], ["{nocrs}", "--input-crs"]),
+    ("unknown-id-field", ["{gpkg}", "--id-field", "no_such_field"], ["{gpkg}", "no_such_field"]),
+    ("crs-not-equal-area", ["{gpkg}", "--crs", "EPSG:3857"], ["--crs", "EPSG:3857"]),
+    ("crs-geographic-points", ["{gpkg}", "--layer", "clinics", "--crs", "EPSG:4326"], ["--crs"]),
+    ("crs-unknown", ["{gpkg}", "--crs", "not a crs"], ["--crs"]),
+    ("unknown-units", ["{gpkg}", "--units", "furlong2"], ["--units"]),
+]
+
+
+@pytest.mark.parametrize("argv, needles", [pytest.param(a, n, id=i) for i, a, n in BAD_INSPECT_CASES])
+def test_inspect_bad_input(bad_files, tmp_path, capsys, argv, needles):
+    fill = {k: str(v) for k, v in bad_files.items()}
+    argv = [a.format(**fill) for a in argv]
+    before = fingerprint(bad_files["folder"])
+    status, out, err = run_main(["inspect", *argv, "--output", tmp_path / "info.json"], capsys)
+    assert_one_line_error(status, out, err, *[n.format(**fill) for n in needles])
+    assert list(tmp_path.iterdir()) == []
+    assert fingerprint(bad_files["folder"]) == before
+
+
+def test_inspect_no_crs_file_with_input_crs(bad_files, capsys):
+    info = inspect_json([bad_files["nocrs"], "--input-crs", "EPSG:4326"], capsys)
+    assert info["crs"] == "EPSG:4326"
+    expected = geod_area(shapely.segmentize(box(10.2, 47.1, 10.3, 47.2), 1000 / METRES_PER_DEGREE))
+    assert rel(info["geodesic_total"], expected) < 1e-9  # pyproj.Geod, Karney 2013
