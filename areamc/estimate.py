@@ -104,12 +104,18 @@ class StopRule:
             raise OptionError("--points and --tolerance exclude each other; give one")
         for name in ("points", "max_points"):
             value = getattr(self, name)
-            if value is not None and (not isinstance(value, (int, np.integer)) or value <= 0):
+            if value is not None and (
+                isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value <= 0
+            ):
                 raise OptionError(f"--{name.replace('_', '-')}: must be a positive whole number, got {value!r}")
         for name in ("absolute", "relative"):
             value = getattr(self, name)
-            if value is not None and not (math.isfinite(value) and value > 0):
-                raise OptionError(f"--tolerance: must be positive, got {value!r}")
+            if value is None:
+                continue
+            if isinstance(value, bool) or not isinstance(value, (int, float, np.number)) or not (
+                math.isfinite(value) and value > 0
+            ):
+                raise OptionError(f"--tolerance: must be a positive number, got {value!r}")
         if self.points is None and self.absolute is None and self.relative is None:
             raise OptionError("give --points or --tolerance")
 
@@ -265,7 +271,8 @@ def hit_or_miss(
     chunk : int
         Points per chunk; memory is ``O(chunk)``.
     trace_every : int, optional
-        Record running counts every this many points (exactly, across chunks).
+        Record running counts every this many points (exactly, across
+        chunks), and once more at the end if the last point is off that grid.
     progress : callable, optional
         Called after each chunk with (points so far, hits so far).
 
@@ -298,6 +305,8 @@ def hit_or_miss(
         if done is not None and done(hits, points):
             stopped_early = points < budget
             break
+    if trace_every and points % trace_every:
+        trace.append(TracePoint(points, tuple(int(h) for h in hits)))  # the final state, off the K grid
     return HitOrMissRun(points, tuple(int(h) for h in hits), box.area, tuple(trace), stopped_early)
 
 

@@ -230,7 +230,10 @@ def measure_area_distortion(
     if not crs.is_projected:
         return math.inf, (bounds[0] + bounds[2]) / 2, (bounds[1] + bounds[3]) / 2
     west, south, east, north = bounds
-    south, north = max(south, -89.0), min(north, 89.0)
+    # Cell centres are kept a cell inside the extent (and off the poles), so no
+    # test cell straddles the antimeridian seam of a world-wide plane.
+    west, east = _inset(west, east, cell)
+    south, north = _inset(max(south, -89.0), min(north, 89.0), cell)
     lons = np.linspace(west, east, grid) if east > west else np.array([west])
     lats = np.linspace(south, north, grid) if north > south else np.array([south])
     lon_c, lat_c = (a.ravel() for a in np.meshgrid(lons, lats))
@@ -262,6 +265,13 @@ def measure_area_distortion(
     except (pyproj.exceptions.ProjError, pyproj.exceptions.CRSError, RuntimeError, ValueError):
         pass  # some CRSs have no factors; the empirical check stands alone
     return worst, where[0], where[1]
+
+
+def _inset(low: float, high: float, margin: float) -> tuple[float, float]:
+    if high - low > 2 * margin:
+        return low + margin, high - margin
+    mid = (low + high) / 2
+    return mid, mid
 
 
 def resolve_plane(

@@ -406,7 +406,7 @@ def test_end_to_end_json_on_sample_files(path, layer):
     doc = json.loads(proc.stdout)
     assert doc["tool"] == "areamc"
     assert doc["version"] == areamc.__version__ == importlib.metadata.version("areamc")
-    assert doc["command"] == " ".join(["areamc", *map(str, args[0:])])
+    assert doc["command"] == " ".join(["areamc", *map(str, args)])
     assert doc["confidence"] == 0.999
     assert doc["seed"] == 20240601
     assert doc["units"] == "m2"

@@ -280,8 +280,10 @@ def test_hit_or_miss__trace__every_k_points_independent_of_chunk(chunk):
     K, n, seed = 700, 5000, 11
     run = hit_or_miss(UNIT, disk, UniformSampler(make_seed(seed)), budget=n, chunk=chunk, trace_every=K)
     cumulative = np.cumsum(_direct_hits(seed, n, disk, UNIT))
-    assert [t.points for t in run.trace] == list(range(K, n + 1, K))
-    assert [t.hits[0] for t in run.trace] == [int(cumulative[m - 1]) for m in range(K, n + 1, K)]
+    # every K points, plus the final state since 5000 is not a multiple of 700
+    marks = list(range(K, n + 1, K)) + [n]
+    assert [t.points for t in run.trace] == marks
+    assert [t.hits[0] for t in run.trace] == [int(cumulative[m - 1]) for m in marks]
     assert run.hits == (int(cumulative[-1]),)
     assert run.points == n and not run.stopped_early
 

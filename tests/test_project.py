@@ -323,12 +323,8 @@ def test_densify__geographic_step(project):
 # Extents that reach the antimeridian
 # --------------------------------------------------------------------------------------------
 
-ANTIMERIDIAN_BUG = (
-    "areamc bug: project.measure_area_distortion centres its test cells on the extent's edges; "
-    "a cell centred on longitude +/-180 straddles the antimeridian, wraps across the seam of a "
-    "global plane and reads a relative area error of about 3.6e4, so EPSG:6933/EPSG:8857 are "
-    "refused (requested) or recorded with that distortion (chosen) for any extent touching +/-180"
-)
+# Regression: test cells used to be centred on the extent's edges, so a cell on longitude
+# +/-180 straddled the seam of a world-wide plane and EPSG:6933 read a 3.6e4 area error.
 
 
 def test_planar_area__cap_north_of_80__closed_form(project):
@@ -341,7 +337,6 @@ def test_planar_area__cap_north_of_80__closed_form(project):
     assert rel(geodesic_area(projected.lonlat[0]), NORTH_OF_80_CAP) < 1e-6
 
 
-@pytest.mark.xfail(reason=ANTIMERIDIAN_BUG, strict=True)
 @pytest.mark.parametrize("crs", ["EPSG:6933", "EPSG:8857"])
 @pytest.mark.parametrize("bounds", [(-180.0, -80.0, 180.0, 80.0), (170.0, -60.0, 180.0, -50.0)], ids=["global", "east_180"])
 def test_resolve_plane__global_plane__extent_touching_antimeridian(bounds, crs):
@@ -353,7 +348,6 @@ def test_resolve_plane__global_plane__extent_touching_antimeridian(bounds, crs):
     assert plane.distortion < 1e-6
 
 
-@pytest.mark.xfail(reason=ANTIMERIDIAN_BUG, strict=True)
 def test_project_layer__global_extent__distortion_recorded(project):
     projected = project([box(-180.0, -60.0, 180.0, 60.0)])
     assert projected.plane.label == "EPSG:6933"
