@@ -168,7 +168,7 @@ def estimate_areas(
             traces[fid] = run.trace
         planar = float(exact_areas[i]) if exact else None
         geodesic = geodesic_area(layer.lonlat[i]) if exact else None
-        z = deviation(est.estimate, planar, est.stderr) if exact else None
+        z = deviation(est.estimate, planar, est.check_scale) if exact else None
         rows.append(
             AreaRow(
                 id=fid,

@@ -181,7 +181,7 @@ def estimate_overlaps(
         if max(share_a, share_b) < min_share:
             continue
         planar = float(exact_pairs[n]) if exact_pairs is not None else None
-        z = deviation(est.estimate, planar, est.stderr) if planar is not None else None
+        z = deviation(est.estimate, planar, est.check_scale) if planar is not None else None
         rows.append(
             OverlapRow(
                 id_a=a.ids[i], id_b=other.ids[j], estimate=est.estimate, stderr=est.stderr,
@@ -231,7 +231,7 @@ def _profile(layer, stop, confidence, root, chunk, exact, budget_s):
                 at_least_ci_high=least.ci_high,
                 exact_exactly=exact_k.get(int(k), 0.0) if exact_k is not None else None,
                 exact_at_least=exact_least,
-                z=deviation(least.estimate, exact_least, least.stderr) if exact_least is not None else None,
+                z=deviation(least.estimate, exact_least, least.check_scale) if exact_least is not None else None,
             )
         )
     return tuple(rows), status

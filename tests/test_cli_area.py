@@ -461,20 +461,19 @@ def test_output_and_trace_files_end_to_end(tmp_path):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["result.json", "trace.csv"]  # no temporary files
 
 
-@pytest.mark.xfail(
-    reason="areamc bug: the --trace CSV only has rows at multiples of --trace-every, so when the "
-    "final point count is not a multiple of K (any --points not divisible by K, and most --tolerance "
-    "runs) its last row is not the final estimate",
-    strict=True,
-)
 @pytest.mark.parametrize("stop", [["-n", "50000"], ["--tolerance", "2%", "--chunk", "4096"]], ids=["points", "tolerance"])
 def test_trace_ends_on_the_final_estimate_when_k_does_not_divide(tmp_path, capsys, stop):
+    # K = 7000 divides neither 50 000 nor a multiple of the 4096-point chunk below 28 672: the trace
+    # still has a row every K points and must end with one more row holding the final state.
     trace = tmp_path / "trace.csv"
     doc = run_json(["area", UTM, *stop, "--seed", "3", "--trace", trace, "--trace-every", "7000"], capsys)
     rows = list(csv.DictReader(io.StringIO(trace.read_text())))
     for final in doc["results"]:
         mine = [r for r in rows if r["id"] == final["id"]]
-        assert int(mine[-1]["points"]) == final["points"]
+        points = [int(r["points"]) for r in mine]
+        assert points[:-1] == list(range(7000, final["points"], 7000))
+        assert points[-1] == final["points"]
+        assert int(mine[-1]["hits"]) == final["hits"]
         assert float(mine[-1]["estimate"]) == final["estimate"]
 
 
