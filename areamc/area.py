@@ -39,7 +39,9 @@ class AreaRow:
     geodesic : float or None
         Area on the WGS84 ellipsoid of the densified geometry (pyproj.Geod).
     z : float or None
-        ``(estimate - exact_planar) / stderr``.
+        ``(estimate - exact_planar) / stderr``, the standard error floored at
+        the Wilson half-width over z when all or no points hit
+        (:attr:`~areamc.estimate.AreaEstimate.check_scale`).
     flagged : bool
         ``|z| > 4``: the estimate and the exact area disagree beyond chance.
     stopped_early : bool

@@ -76,10 +76,8 @@ class ZoneIndex:
         cell_id = iy[cell_idx] * g + ix[cell_idx]
         full = shapely.contains(zones[zone_idx], cell_boxes[cell_idx]) if len(cell_idx) else np.zeros(0, bool)
         self._base = np.bincount(cell_id[full], minlength=g * g).astype(np.int64)
-        partial_cell = cell_id[~full]
-        order = np.argsort(partial_cell, kind="stable")
-        self._partial_zone = zone_idx[~full][order]
-        self._indptr = np.concatenate([[0], np.cumsum(np.bincount(partial_cell, minlength=g * g))])
+        self._full_zone, self._full_ptr = _csr(cell_id[full], zone_idx[full], g * g)
+        self._partial_zone, self._indptr = _csr(cell_id[~full], zone_idx[~full], g * g)
         self.max_count = int((self._base + np.diff(self._indptr)).max()) if g else 0
 
     def _cell(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -88,22 +86,52 @@ class ZoneIndex:
         iy = np.clip(((y - self.box.ymin) / self._dy).astype(np.int64), 0, g - 1)
         return iy * g + ix
 
+    def _partial_hits(self, x: np.ndarray, y: np.ndarray, cell: np.ndarray):
+        point, zone = _expand(cell, self._indptr, self._partial_zone)
+        if point.size:
+            hit = shapely.contains_xy(self._zones[zone], x[point], y[point])
+            point, zone = point[hit], zone[hit]
+        return point, zone
+
     def counts(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
         """Number of zones containing each point (int64 array, shape of `x`); points in plane metres."""
         x = np.asarray(x, float)
         y = np.asarray(y, float)
         cell = self._cell(x, y)
         count = self._base[cell].copy()
-        start = self._indptr[cell]
-        k = self._indptr[cell + 1] - start
-        total = int(k.sum())
-        if total:
-            point = np.repeat(np.arange(len(x)), k)
-            offset = np.arange(total) - np.repeat(np.cumsum(k) - k, k) + np.repeat(start, k)
-            zone = self._partial_zone[offset]
-            hit = shapely.contains_xy(self._zones[zone], x[point], y[point])
-            count += np.bincount(point[hit], minlength=len(x))
+        point, _ = self._partial_hits(x, y, cell)
+        if point.size:
+            count += np.bincount(point, minlength=len(x))
         return count
+
+    def pairs(self, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Every (point index, zone index) with the zone containing the point; points in plane metres."""
+        x = np.asarray(x, float)
+        y = np.asarray(y, float)
+        cell = self._cell(x, y)
+        full_point, full_zone = _expand(cell, self._full_ptr, self._full_zone)
+        point, zone = self._partial_hits(x, y, cell)
+        return np.concatenate([full_point, point]), np.concatenate([full_zone, zone])
+
+
+def _csr(cells: np.ndarray, zones: np.ndarray, n_cells: int) -> tuple[np.ndarray, np.ndarray]:
+    """Zones grouped by cell: (zone ids sorted by cell, row pointer of length n_cells + 1)."""
+    order = np.argsort(cells, kind="stable")
+    indptr = np.concatenate([[0], np.cumsum(np.bincount(cells, minlength=n_cells))])
+    return zones[order], indptr
+
+
+def _expand(cell: np.ndarray, indptr: np.ndarray, members: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """All (point, member) pairs for the members listed under each point's cell."""
+    start = indptr[cell]
+    k = indptr[cell + 1] - start
+    total = int(k.sum())
+    if not total:
+        empty = np.zeros(0, dtype=np.int64)
+        return empty, empty
+    point = np.repeat(np.arange(len(cell)), k)
+    offset = np.arange(total) - np.repeat(np.cumsum(k) - k, k) + np.repeat(start, k)
+    return point, members[offset]
 
 
 #: Average number of zone boundaries crossing a cell that the default grid aims for.

@@ -203,7 +203,7 @@ def _done(ks, tolerance, claim, confidence):
     if claim is None and tolerance is None:
         return None
 
-    def done(hits: np.ndarray, points: int) -> bool:
+    def done(hits: np.ndarray, _sumsq: np.ndarray, points: int) -> bool:
         n = int(hits[0])
         if n == 0:
             return False

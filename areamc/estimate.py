@@ -230,7 +230,7 @@ class HitOrMissRun:
 
 
 Classify = Callable[[np.ndarray, np.ndarray], np.ndarray]
-Done = Callable[[np.ndarray, int], bool]
+Done = Callable[[np.ndarray, np.ndarray, int], bool]
 Progress = Callable[[int, np.ndarray], None]
 
 
@@ -242,7 +242,7 @@ def area_target(stop: StopRule, box_area: float, confidence: float) -> Done | No
     if not stop.adaptive:
         return None
 
-    def done(hits: np.ndarray, points: int) -> bool:
+    def done(hits: np.ndarray, _sumsq: np.ndarray, points: int) -> bool:
         return all(
             stop.met(e.half_width, e.estimate)
             for e in (AreaEstimate.from_counts(int(h), points, box_area, confidence) for h in hits)
@@ -290,7 +290,7 @@ def accumulate(
     budget : int
         Most points to draw.
     done : callable, optional
-        ``done(sums, points)`` checked at the end of each chunk; True stops
+        ``done(sums, sumsq, points)`` checked at the end of each chunk; True stops
         (a precision target met, or a sequential decision reached).
     chunk : int
         Points per chunk; memory is ``O(chunk)``.
@@ -327,7 +327,7 @@ def accumulate(
         points += n
         if progress is not None:
             progress(points, sums)
-        if done is not None and done(sums, points):
+        if done is not None and done(sums, sumsq, points):
             stopped_early = points < budget
             break
     if trace_every and points % trace_every:

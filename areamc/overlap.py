@@ -104,7 +104,8 @@ def candidate_pairs(a: ProjectedLayer, b: ProjectedLayer | None = None) -> np.nd
     """Index pairs ``(i, j)`` whose zones intersect: shape ``(2, k)``, sorted.
 
     With one layer only ``i < j`` pairs are returned.  The STRtree prunes by
-    bounding box; the intersects predicate then drops pairs that cannot overlap.
+    bounding box; the intersects predicate then drops pairs that cannot
+    overlap, and pairs that only touch (shared edges or points) are dropped too.
     """
     other = a if b is None else b
     tree = shapely.STRtree(other.planar)
@@ -112,6 +113,8 @@ def candidate_pairs(a: ProjectedLayer, b: ProjectedLayer | None = None) -> np.nd
     pairs = np.vstack([i_other, j_self])
     if b is None:
         pairs = pairs[:, pairs[0] < pairs[1]]
+    # zones that only share boundary (neighbours in a partition) have no overlap to sample
+    pairs = pairs[:, ~shapely.touches(a.planar[pairs[0]], other.planar[pairs[1]])]
     order = np.lexsort((pairs[1], pairs[0]))
     return pairs[:, order]
 

@@ -24,8 +24,13 @@ __all__ = ["geodesic_circle", "zones_from_points", "read_zones", "DEFAULT_VERTIC
 DEFAULT_VERTICES = 256
 
 
-def geodesic_circle(lon: float, lat: float, radius_m: float, vertices: int = DEFAULT_VERTICES) -> shapely.Polygon:
+def geodesic_circle(
+    lon: float, lat: float, radius_m: float, vertices: int = DEFAULT_VERTICES, *, geod=WGS84
+) -> shapely.Polygon:
     """Polygon (lon/lat degrees) approximating the geodesic circle of `radius_m` metres around a point.
+
+    `geod` is the ellipsoid (default WGS84); a sphere can be given as
+    ``pyproj.Geod(a=R, b=R)``.  Vertices lie at exactly `radius_m` from the centre.
 
     Raises
     ------
@@ -34,7 +39,7 @@ def geodesic_circle(lon: float, lat: float, radius_m: float, vertices: int = DEF
         a longitude/latitude polygon cannot represent.
     """
     azimuths = np.linspace(0.0, 360.0, vertices, endpoint=False)
-    lons, lats, _ = WGS84.fwd(np.full(vertices, lon), np.full(vertices, lat), azimuths, np.full(vertices, radius_m))
+    lons, lats, _ = geod.fwd(np.full(vertices, lon), np.full(vertices, lat), azimuths, np.full(vertices, radius_m))
     lons = np.asarray(lons)
     if np.ptp(lons) > 180 or abs(lat) + math.degrees(radius_m / 6_371_007.0) >= 90:
         raise OptionError(

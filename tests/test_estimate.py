@@ -309,5 +309,6 @@ def test_area_target__fixed_count_has_no_test():
     assert area_target(StopRule(points=100), 1.0, 0.95) is None
     done = area_target(StopRule(points=None, relative=0.1), 1.0, 0.95)
     # Wilson half-width at 500/1000 is about 0.031 (scipy reference) <= 0.1 * 0.5; at 5/10 it is not.
-    assert done(np.array([500]), 1000) and not done(np.array([5]), 10)
-    assert not done(np.array([500, 0]), 1000)  # every column must meet the target
+    # done(sums, sums of squares, points); for hit counts the squares equal the sums
+    assert done(np.array([500]), np.array([500]), 1000) and not done(np.array([5]), np.array([5]), 10)
+    assert not done(np.array([500, 0]), np.array([500, 0]), 1000)  # every column must meet the target
