@@ -14,18 +14,20 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 import shapely
 
 from .classify import ZoneIndex
+from .density import BlockDensity, DensitySource
 from .estimate import DEFAULT_CHUNK, StopRule, check_confidence, hit_or_miss, wilson_interval, z_for
 from .exact import FLAG_Z, at_least, covered_area, deviation, multiplicity_areas, planar_area
 from .errors import OptionError
 from .project import EqualAreaPlane, ProjectedLayer
 from .sampling import Box, UniformSampler, child_seed, make_seed
-from .sequential import UNDECIDED, check_claim, confidence_sequence, verdict
+from .sequential import FALLS_SHORT, UNDECIDED, check_claim, confidence_sequence, verdict
+from .weighted import IMPORTANCE, weighted_run
 
 __all__ = ["CoverageRow", "CoverageReport", "estimate_coverage", "NOT_COMPUTED"]
 
@@ -76,9 +78,24 @@ class CoverageRow:
     claim: float | None
     verdict: str | None
     interval: str
+    population: float | None = None
+    covered_population: float | None = None
+    population_share: float | None = None
+    population_share_stderr: float | None = None
+    population_share_ci_low: float | None = None
+    population_share_ci_high: float | None = None
+    population_points: int | None = None
+    population_method: str | None = None
+    exact_population_share: float | None = None
+    population_verdict: str | None = None
 
-    def to_dict(self) -> dict:
-        return asdict(self)
+    def to_dict(self, population: bool = True) -> dict:
+        """Fields as a dict; without `population` the density fields are left out."""
+        out = asdict(self)
+        if not population:
+            for key in [k for k in out if k.startswith(("population", "covered_population", "exact_population"))]:
+                del out[key]
+        return out
 
 
 @dataclass(frozen=True)
@@ -107,8 +124,8 @@ class CoverageReport:
 
     @property
     def shortfall(self) -> bool:
-        """True when any region falls short of the claim."""
-        return any(row.verdict == "falls short" for row in self.rows)
+        """True when any region falls short of the claim, by area or (with a density) by population."""
+        return any(FALLS_SHORT in (row.verdict, row.population_verdict) for row in self.rows)
 
 
 def _check_ks(ks) -> tuple[int, ...]:
@@ -133,6 +150,8 @@ def estimate_coverage(
     chunk: int = DEFAULT_CHUNK,
     exact: bool = True,
     exact_budget_s: float = 10.0,
+    density: DensitySource | None = None,
+    importance: bool = True,
 ) -> CoverageReport:
     """Estimate, per region, the share covered by at least k zones for each k in `ks`.
 
@@ -153,6 +172,11 @@ def estimate_coverage(
         region stops early once all its verdicts are decided.
     exact : bool
         Compute exact shares (k = 1 always; k ≥ 2 within `exact_budget_s` per region).
+    density : DensitySource, optional
+        Also estimate covered population: a second, density-weighted run per
+        region (:func:`~areamc.weighted.weighted_run`).
+    importance : bool
+        Sample the density by importance where the source allows.
 
     Returns
     -------
@@ -194,8 +218,15 @@ def estimate_coverage(
         )
         exact_shares, status[rid] = _exact_shares(region, near, ks, exact, exact_budget_s)
         n_in = run.hits[0]
+        people = _population(region, near, classify, density, root, r, stop, chunk, importance, ks,
+                             share_tolerance, claim, confidence, exact) if density is not None else None
         for c, k in enumerate(ks):
-            rows.append(_row(rid, k, run.hits[c + 1], n_in, float(region_areas[r]), exact_shares.get(k), claim, confidence))
+            row = _row(rid, k, run.hits[c + 1], n_in, float(region_areas[r]), exact_shares.get(k), claim, confidence)
+            if people is not None:
+                row = replace(row, **people(c + 1, k))
+            rows.append(row)
+    if density is not None:
+        density.finish()
     return CoverageReport(tuple(rows), regions.plane, confidence, int(root.entropy), ks, claim, status)
 
 
@@ -250,3 +281,54 @@ def _row(rid, k, hits, n, region_area, exact_share, claim, confidence) -> Covera
         exact_share=exact_share, z=z, flagged=bool(z is not None and abs(z) > FLAG_Z),
         claim=claim, verdict=None if claim is None else verdict(hits, n, claim, confidence), interval=method,
     )
+
+
+def _population(region, near, classify, density, root, r, stop, chunk, importance, ks, tolerance, claim,
+                confidence, exact):
+    """Run the density-weighted sample of one region; return a function giving each k's fields."""
+    density.prepare(region)
+
+    def done(method, scale, sums, sumsq, points) -> bool:
+        n = float(sums[0])
+        if n <= 0:
+            return False
+        if claim is not None and method == IMPORTANCE:
+            return all(verdict(int(h), int(n), claim, confidence) != UNDECIDED for h in sums[1:])
+        if tolerance is not None:
+            from .weighted import WeightedRun
+
+            run = WeightedRun(method, points, scale, sums, sumsq, False)
+            return all((run.share(c, confidence)[3] - run.share(c, confidence)[2]) / 2 <= tolerance
+                       for c in range(1, len(sums)))
+        return False
+
+    run = weighted_run(region, classify, density, root, (r, 1), budget=stop.budget, chunk=chunk,
+                       importance=importance, done=done if (claim is not None or tolerance is not None) else None)
+    truth = density.exact_total(region) if exact else None
+    covered_truth = None
+    if exact and isinstance(density, BlockDensity) and truth:
+        covered_truth = density.exact_total(shapely.intersection(region, shapely.union_all(near))) / truth if len(near) else 0.0
+
+    def fields(column: int, k: int) -> dict:
+        if run is None:
+            return {"population": 0.0 if truth is None else truth, "covered_population": 0.0,
+                    "population_points": 0, "population_method": "none"}
+        total = truth if truth is not None else run.total(confidence).estimate
+        share, se, low, high = run.share(column, confidence)
+        if claim is not None and run.method == IMPORTANCE:
+            low, high = confidence_sequence(int(run.sums[column]), int(run.sums[0]), confidence)
+        return {
+            "population": total,
+            "covered_population": share * total,
+            "population_share": share,
+            "population_share_stderr": se,
+            "population_share_ci_low": low,
+            "population_share_ci_high": high,
+            "population_points": run.points,
+            "population_method": run.method,
+            "exact_population_share": covered_truth if k == 1 else None,
+            "population_verdict": verdict(int(run.sums[column]), int(run.sums[0]), claim, confidence)
+            if claim is not None and run.method == IMPORTANCE else None,
+        }
+
+    return fields

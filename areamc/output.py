@@ -27,12 +27,15 @@ FORMATS = ("table", "csv", "json")
 class Column:
     """A column of a result table: field name, heading, and whether it holds an area."""
 
-    __slots__ = ("field", "heading", "area", "spec")
+    __slots__ = ("field", "heading", "area", "per_area", "spec")
 
-    def __init__(self, field: str, heading: str | None = None, *, area: bool = False, spec: str | None = None) -> None:
+    def __init__(
+        self, field: str, heading: str | None = None, *, area: bool = False, per_area: bool = False, spec: str | None = None
+    ) -> None:
         self.field = field
         self.heading = heading or field
         self.area = area
+        self.per_area = per_area
         self.spec = spec
 
     def text(self, value) -> str:
@@ -43,16 +46,18 @@ class Column:
 
 
 def convert_rows(rows: Iterable[dict], columns: Sequence[Column], units: str) -> list[dict]:
-    """Return copies of `rows` with area columns divided by the unit's m² (see :mod:`areamc.units`)."""
+    """Return copies of `rows` with area columns divided by the unit's m² and
+    per-area columns (densities per m²) multiplied by it (see :mod:`areamc.units`)."""
     factor = area_factor(units)
-    area_fields = {c.field for c in columns if c.area}
+    scale = {c.field: 1 / factor for c in columns if c.area}
+    scale.update({c.field: factor for c in columns if c.per_area})
     out = []
     for row in rows:
         new = dict(row)
-        for key in area_fields:
+        for key, s in scale.items():
             value = new.get(key)
             if isinstance(value, (int, float)) and not isinstance(value, bool):
-                new[key] = value / factor
+                new[key] = value * s
         out.append(new)
     return out
 

@@ -13,12 +13,12 @@ import warnings
 from .. import __version__
 from ..errors import AreamcError, InputError
 from ..load import AreamcWarning
-from . import area, coverage, inspect, overlap
+from . import area, coverage, inspect, integrate, overlap
 from .common import Parser
 
 __all__ = ["main", "build_parser"]
 
-COMMANDS = (area, overlap, coverage, inspect)
+COMMANDS = (area, overlap, coverage, integrate, inspect)
 
 
 def build_parser() -> Parser:

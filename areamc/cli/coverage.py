@@ -12,6 +12,7 @@ from ..load import read_layer
 from ..output import Column
 from ..project import project_layers
 from ..sequential import check_claim
+from .density_options import add_density_options, build_density, read_density
 from .common import (
     add_layer_options,
     add_output_options,
@@ -38,6 +39,14 @@ COLUMNS = (
     Column("exact_share", spec=".4f"),
     Column("z", spec=".2f"),
     Column("flagged", "flag"),
+)
+POPULATION_COLUMNS = (
+    Column("population", spec=",.0f"),
+    Column("covered_population", "covered_pop", spec=",.0f"),
+    Column("population_share", "pop_share", spec=".4f"),
+    Column("population_share_ci_low", "ci_low", spec=".4f"),
+    Column("population_share_ci_high", "ci_high", spec=".4f"),
+    Column("exact_population_share", "exact", spec=".4f"),
 )
 CLAIM_COLUMNS = (Column("claim", spec=".4g"), Column("verdict"))
 ALL_FIELDS = COLUMNS + (
@@ -79,6 +88,7 @@ def add_parser(sub) -> None:
     p.add_argument("--claim", type=_claim, metavar="SHARE",
                    help="check the claim that each share is at least SHARE, in (0, 1]")
     p.add_argument("--fail-on-shortfall", action="store_true", help="exit status 1 when any region falls short of --claim")
+    add_density_options(p, required=False)
     p.add_argument("--no-exact", action="store_true", help="skip shapely's exact shares")
     p.add_argument("--exact-budget", type=positive_float, default=10.0, metavar="SECONDS",
                    help="time allowed per region for exact shares at k >= 2 (default 10)")
@@ -114,7 +124,13 @@ def run(args) -> int:
     check_outputs(args, [args.regions, args.zones])
     regions = read_layer(args.regions, layer=args.layer, id_field=args.id_field, input_crs=args.input_crs)
     zones = zone_layer(args, args.zones, args.zones_layer, args.zones_id_field, args.zones_input_crs)
-    projected = project_layers([regions, zones], crs=args.crs, densify_m=args.densify)
+    source_input = read_density(args)
+    layers = [regions, zones] + ([source_input.blocks] if source_input and source_input.blocks is not None else [])
+    projected = project_layers(layers, crs=args.crs, densify_m=args.densify)
+    density = None
+    if source_input is not None:
+        density = build_density(args, source_input, projected[0].plane, projected[2] if len(projected) > 2 else None,
+                                projected[0])
     report = estimate_coverage(
         projected[0],
         projected[1],
@@ -127,8 +143,10 @@ def run(args) -> int:
         chunk=args.chunk,
         exact=not args.no_exact,
         exact_budget_s=args.exact_budget,
+        density=density,
+        importance=not args.no_importance,
     )
-    rows = [r.to_dict() for r in report.rows]
+    rows = [r.to_dict(population=density is not None) for r in report.rows]
     metadata = {
         "tool": "areamc",
         "version": __version__,
@@ -137,6 +155,8 @@ def run(args) -> int:
         **report.metadata(),
     }
     method = "confidence sequences (valid under early stopping)" if args.claim is not None else "Wilson intervals"
+    if density is not None:
+        method += f"; population from {source_input.kind} {args.density}"
     header = [
         f"areamc coverage: {regions.path} ({regions.layer}, {len(regions)} regions) by {zones.path} ({zones.layer}, {len(zones)} zones)",
         f"equal-area plane: {report.plane.label}; {report.confidence:.4g} {method}; seed {report.seed_entropy}; units {args.units}",
@@ -155,6 +175,8 @@ def run(args) -> int:
     if not_done and not args.no_exact:
         footer.append(f"exact shares for k >= 2 not computed within --exact-budget for: {', '.join(not_done)}")
     columns = COLUMNS + (CLAIM_COLUMNS if args.claim is not None else ())
+    if density is not None:
+        columns += POPULATION_COLUMNS + ((Column("population_verdict", "pop_verdict"),) if args.claim is not None else ())
     if output_format(args) != "table":
         columns = ALL_FIELDS + CLAIM_COLUMNS
     by_id = dict(zip(regions.ids, regions.geometries))
