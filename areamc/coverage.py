@@ -27,9 +27,9 @@ from .errors import OptionError
 from .project import EqualAreaPlane, ProjectedLayer
 from .sampling import Box, UniformSampler, child_seed, make_seed
 from .sequential import FALLS_SHORT, UNDECIDED, check_claim, confidence_sequence, verdict
-from .weighted import IMPORTANCE, weighted_run
+from .weighted import IMPORTANCE, WeightedRun, weighted_run
 
-__all__ = ["CoverageRow", "CoverageReport", "estimate_coverage", "NOT_COMPUTED"]
+__all__ = ["CoverageRow", "CoverageReport", "estimate_coverage", "region_classifier", "NOT_COMPUTED"]
 
 NOT_COMPUTED = "not computed"
 
@@ -143,7 +143,6 @@ def estimate_coverage(
     *,
     ks=(1,),
     stop: StopRule | None = None,
-    share_tolerance: float | None = None,
     confidence: float = 0.95,
     claim: float | None = None,
     seed: int | np.random.SeedSequence | None = None,
@@ -162,9 +161,10 @@ def estimate_coverage(
     ks : iterable of int
         Multiplicities to report (k ≥ 1).
     stop : StopRule
-        Points thrown into each region's box (the budget).
-    share_tolerance : float, optional
-        Stop a region early when every share's half-width is at most this (0..1).
+        Points thrown into each region's box (the budget), or a precision
+        target on the shares: stop a region once every share's half-width is
+        at most ``stop.absolute`` (a share, 0..1) or ``stop.relative`` times
+        the share.
     confidence : float
         Level of intervals and of claim decisions.
     claim : float, optional
@@ -187,10 +187,9 @@ def estimate_coverage(
     ks = _check_ks(ks)
     if claim is not None:
         claim = check_claim(claim)
-    if share_tolerance is not None and not 0 < share_tolerance < 1:
-        raise OptionError(f"--tolerance: a share tolerance must lie in (0, 1), got {share_tolerance!r}")
+    if stop.absolute is not None and not stop.absolute < 1:
+        raise OptionError(f"--tolerance: a share tolerance must lie in (0, 1), got {stop.absolute!r}")
     root = make_seed(seed)
-    karr = np.asarray(ks)
     shapely.prepare(regions.planar)
     shapely.prepare(zones.planar)
     tree = shapely.STRtree(zones.planar)
@@ -200,26 +199,20 @@ def estimate_coverage(
     for r, (rid, region) in enumerate(zip(regions.ids, regions.planar)):
         near = zones.planar[np.sort(tree.query(region, predicate="intersects"))]
         box = Box.of(region.bounds)
-        index = ZoneIndex(near, box)
-
-        def classify(x, y, region=region, index=index):
-            inside = shapely.contains_xy(region, x, y)
-            counts = np.zeros(len(x), dtype=np.int64)
-            counts[inside] = index.counts(x[inside], y[inside])
-            return np.column_stack([inside, counts[:, None] >= karr[None, :]])
+        classify = region_classifier(region, near, ks)
 
         run = hit_or_miss(
             box,
             classify,
             UniformSampler(child_seed(root, r)),
             budget=stop.budget,
-            done=_done(ks, share_tolerance, claim, confidence),
+            done=_done(stop, claim, confidence),
             chunk=chunk,
         )
         exact_shares, status[rid] = _exact_shares(region, near, ks, exact, exact_budget_s)
         n_in = run.hits[0]
         people = _population(region, near, classify, density, root, r, stop, chunk, importance, ks,
-                             share_tolerance, claim, confidence, exact) if density is not None else None
+                             claim, confidence, exact) if density is not None else None
         for c, k in enumerate(ks):
             row = _row(rid, k, run.hits[c + 1], n_in, float(region_areas[r]), exact_shares.get(k), claim, confidence)
             if people is not None:
@@ -230,8 +223,28 @@ def estimate_coverage(
     return CoverageReport(tuple(rows), regions.plane, confidence, int(root.entropy), ks, claim, status)
 
 
-def _done(ks, tolerance, claim, confidence):
-    if claim is None and tolerance is None:
+def region_classifier(region, zones, ks):
+    """``f(x, y)`` giving bools ``(n, 1 + len(ks))``: in `region`, and in it covered by ≥ k of `zones`.
+
+    Points in plane metres.  Multiplicity is counted only for points inside
+    the region, by a :class:`~areamc.classify.ZoneIndex` over `zones` laid on
+    the region's bounding box.
+    """
+    karr = np.asarray(ks)
+    index = ZoneIndex(zones, Box.of(region.bounds))
+    shapely.prepare(region)
+
+    def classify(x, y):
+        inside = shapely.contains_xy(region, x, y)
+        counts = np.zeros(len(x), dtype=np.int64)
+        counts[inside] = index.counts(x[inside], y[inside])
+        return np.column_stack([inside, counts[:, None] >= karr[None, :]])
+
+    return classify
+
+
+def _done(stop, claim, confidence):
+    if claim is None and not stop.adaptive:
         return None
 
     def done(hits: np.ndarray, _sumsq: np.ndarray, points: int) -> bool:
@@ -241,7 +254,7 @@ def _done(ks, tolerance, claim, confidence):
         if claim is not None:
             return all(verdict(int(h), n, claim, confidence) != UNDECIDED for h in hits[1:])
         low, high = wilson_interval(hits[1:], n, confidence)
-        return bool(np.all((high - low) / 2 <= tolerance))
+        return all(stop.met((hi - lo) / 2, h / n) for lo, hi, h in zip(low, high, hits[1:]))
 
     return done
 
@@ -283,8 +296,7 @@ def _row(rid, k, hits, n, region_area, exact_share, claim, confidence) -> Covera
     )
 
 
-def _population(region, near, classify, density, root, r, stop, chunk, importance, ks, tolerance, claim,
-                confidence, exact):
+def _population(region, near, classify, density, root, r, stop, chunk, importance, ks, claim, confidence, exact):
     """Run the density-weighted sample of one region; return a function giving each k's fields."""
     density.prepare(region)
 
@@ -294,16 +306,14 @@ def _population(region, near, classify, density, root, r, stop, chunk, importanc
             return False
         if claim is not None and method == IMPORTANCE:
             return all(verdict(int(h), int(n), claim, confidence) != UNDECIDED for h in sums[1:])
-        if tolerance is not None:
-            from .weighted import WeightedRun
-
+        if stop.adaptive:
             run = WeightedRun(method, points, scale, sums, sumsq, False)
-            return all((run.share(c, confidence)[3] - run.share(c, confidence)[2]) / 2 <= tolerance
-                       for c in range(1, len(sums)))
+            shares = [run.share(c, confidence) for c in range(1, len(sums))]
+            return all(stop.met((high - low) / 2, share) for share, _, low, high in shares)
         return False
 
     run = weighted_run(region, classify, density, root, (r, 1), budget=stop.budget, chunk=chunk,
-                       importance=importance, done=done if (claim is not None or tolerance is not None) else None)
+                       importance=importance, done=done if (claim is not None or stop.adaptive) else None)
     truth = density.exact_total(region) if exact else None
     covered_truth = None
     if exact and isinstance(density, BlockDensity) and truth:

@@ -172,8 +172,10 @@ def test_overlap__one_layer_multiplicity_profile(one_layer_doc, service_zones):
 
 
 def test_overlap__two_layers_cross_pairs(capsys, service_zones):
-    doc = run_json(capsys, ["overlap", *ZONES, str(GPKG), "--other-layer", "districts",
-                            "--other-id-field", "district_id", "-n", "20000", "--seed", "4", "--confidence", "0.999"])
+    # both files first: argparse does not take the optional second positional after options
+    doc = run_json(capsys, ["overlap", str(GPKG), str(GPKG), "--layer", "service_zones", "--id-field", "zone_id",
+                            "--other-layer", "districts", "--other-id-field", "district_id", "-n", "20000",
+                            "--seed", "4", "--confidence", "0.999"])
     zid, zgeoms, crs = service_zones
     did, dgeoms, dcrs = read(GPKG, "districts", "district_id")
     zp, dp = to_plane(zgeoms, crs, doc), to_plane(dgeoms, dcrs, doc)
@@ -205,11 +207,6 @@ def test_overlap__no_overlapping_pairs_says_so(capsys, tmp_path):
     assert doc["results"] == []
 
 
-@pytest.mark.xfail(
-    reason="bug: areamc overlap lists every neighbour pair of a partition (zones sharing only an edge) as "
-    "an overlapping pair with estimate 0, instead of an empty result with 'no overlapping pairs'",
-    strict=True,
-)
 def test_overlap__a_partition_has_no_overlapping_pairs(capsys):
     """The sample districts partition the county: shapely finds no overlap of positive area."""
     did, dgeoms, _ = read(GPKG, "districts", "district_id")
@@ -267,17 +264,38 @@ def test_overlap__gpkg_output_holds_intersections_in_the_input_crs(capsys, tmp_p
     by_id = dict(zip(ids, geoms))
     for f in feats:
         key = (f.properties["id_a"], f.properties["id_b"])
-        for field in REQUIRED:
+        for field in ("estimate", "stderr", "ci_low", "ci_high", "exact_planar", "z"):
             assert f.properties[field] == pytest.approx(rows[key][field], rel=1e-12)
         got = shape(f.geometry)
         # back in lon/lat: the geometry is the intersection of the two zones (shapely in lon/lat;
         # the tool cut it in the plane, so edges differ only by densification, well under 1e-4)
         expected = shapely.intersection(by_id[key[0]], by_id[key[1]])
         assert shapely.symmetric_difference(got, expected).area <= 1e-4 * expected.area
-        assert geodesic_area(got) == pytest.approx(geodesic_area(expected), rel=1e-4)
+        # geodesic areas of both, with edges cut to 1 km so each follows its lon/lat line (Karney 2013);
+        # they differ where the cut was made (plane chords vs lon/lat lines: ~1e-5 on a thin sliver)
+        assert geodesic_area(got) == pytest.approx(geodesic_area(shapely.segmentize(expected, STEP_DEG)), rel=1e-4)
         # and in the plane its area is shapely's exact overlap
         (planar,) = to_plane([got], crs, one_layer_doc, step=1e9)  # no new vertices: keep its own
         assert planar.area == pytest.approx(rows[key]["exact_planar"], rel=1e-6)
+
+
+@pytest.mark.xfail(
+    reason="bug: share_a/share_b are numpy float64 (overlap.estimate_overlaps divides by a numpy array) "
+    "and areamc.vector._field_type classifies by exact type(), so they get a 'str' field and fiona "
+    "skips every value: the GeoPackage's share_a/share_b are empty",
+    strict=True,
+)
+def test_overlap__gpkg_output_holds_the_shares(tmp_path, one_layer_doc):
+    out = tmp_path / "pairs.gpkg"
+    rc = main(["overlap", *ZONES, "-n", "40000", "--seed", "3", "--confidence", "0.999", "-q", "--output", str(out)])
+    assert rc == 0
+    rows = {(r["id_a"], r["id_b"]): r for r in one_layer_doc["results"]}
+    with fiona.open(out) as src:
+        assert src.schema["properties"]["share_a"].startswith("float")
+        for f in src:
+            row = rows[(f.properties["id_a"], f.properties["id_b"])]
+            assert f.properties["share_a"] == pytest.approx(row["share_a"], rel=1e-12)
+            assert f.properties["share_b"] == pytest.approx(row["share_b"], rel=1e-12)
 
 
 def test_overlap__csv_and_units(capsys, one_layer_doc):

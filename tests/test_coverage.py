@@ -149,12 +149,23 @@ def test_coverage__no_exact(layers):
 def test_coverage__share_tolerance_stops_when_met(layers):
     regions, zones = layers
     budget = 2_000_000
-    report = estimate_coverage(regions, zones, ks=(1, 2), stop=StopRule(points=budget), share_tolerance=0.01,
-                               confidence=0.95, seed=3, chunk=2_000)
+    stop = StopRule(points=None, absolute=0.01, max_points=budget)  # a half-width of 0.01 (a share)
+    report = estimate_coverage(regions, zones, ks=(1, 2), stop=stop, confidence=0.95, seed=3, chunk=2_000)
     for row in report.rows:
         assert (row.ci_high - row.ci_low) / 2 <= 0.01
         assert row.points < budget / 50  # ~10 000 points suffice for ±0.01 at p = 1/2
         assert abs(row.share - row.exact_share) <= 4 * row.stderr + 1e-12
+
+
+def test_coverage__relative_share_tolerance(layers):
+    regions, zones = layers
+    budget = 2_000_000
+    stop = StopRule(points=None, relative=0.05, max_points=budget)  # half-width at most 5% of the share
+    report = estimate_coverage(regions, zones, ks=(1,), stop=stop, confidence=0.95, seed=3, chunk=2_000)
+    for row in (r for r in report.rows if r.exact_share > 0.1):
+        assert (row.ci_high - row.ci_low) / 2 <= 0.05 * row.share
+        assert row.points < budget / 50
+        assert abs(row.share - row.exact_share) <= 4 * row.stderr
 
 
 def test_coverage__zones_in_another_crs_are_reprojected():
@@ -253,7 +264,8 @@ def test_coverage__bad_claim_refused(claim_layers, claim):
         estimate_coverage(*claim_layers, claim=claim, stop=StopRule(points=100))
 
 
-@pytest.mark.parametrize("tolerance", [0.0, 1.0, -0.1])
+@pytest.mark.parametrize("tolerance", [0.0, 1.0, 1.5, -0.1])
 def test_coverage__bad_share_tolerance_refused(claim_layers, tolerance):
+    """An absolute share tolerance must lie in (0, 1)."""
     with pytest.raises(OptionError, match="--tolerance"):
-        estimate_coverage(*claim_layers, share_tolerance=tolerance, stop=StopRule(points=100))
+        estimate_coverage(*claim_layers, stop=StopRule(points=None, absolute=tolerance, max_points=1_000))

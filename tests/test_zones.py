@@ -133,20 +133,55 @@ def test_geodesic_circle__deficit_falls_as_one_over_n_squared():
     assert deficits[0] / deficits[1] == pytest.approx(16.0, rel=0.01)
 
 
-@pytest.mark.xfail(
-    reason="missing feature: areamc.zones.geodesic_circle always uses areamc.project.WGS84 and "
-    "takes no Geod/ellipsoid argument, so the exact spherical-cap check cannot be run on a sphere",
-    strict=True,
-)
-def test_geodesic_circle__on_a_sphere_matches_the_cap():
-    """On a sphere (pyproj.Geod(a=R, b=R)) the n-gon's area is the cap 2πR²(1 − cos(r/R))
-    (REFERENCES §9) times the inscribed-polygon factor, to 1% of the deficit."""
-    radius_sphere = 6_371_007.180918  # authalic radius of WGS84 (REFERENCES §1, TR8350.2)
-    sphere = pyproj.Geod(a=radius_sphere, b=radius_sphere)
-    poly = geodesic_circle(10.0, 45.0, 100_000.0, 256, geod=sphere)  # type: ignore[call-arg]
-    area, _ = sphere.polygon_area_perimeter(*ring(poly))
-    cap = 2 * math.pi * radius_sphere**2 * (1 - math.cos(100_000.0 / radius_sphere))
-    assert 1 - area / cap == pytest.approx((2 * math.pi / 256) ** 2 / 6, rel=0.01)
+#: A sphere of the WGS84 authalic radius R_q = 6 371 007.180 918 m (REFERENCES §1; TR8350.2).
+R_SPHERE = 6_371_007.180918
+SPHERE = pyproj.Geod(a=R_SPHERE, b=R_SPHERE)
+
+
+def spherical_ngon_area(radius_m: float, vertices: int, r: float = R_SPHERE) -> float:
+    """Exact area of the regular geodesic n-gon inscribed in a spherical circle of radius `radius_m`.
+
+    n triangles centre-vertex-vertex, each with two sides ρ = radius/R and included angle
+    θ = 2π/n; a triangle's spherical excess E from two sides and their included angle is
+    tan(E/2) = tan(a/2) tan(b/2) sin C / (1 + tan(a/2) tan(b/2) cos C) (standard spherical
+    trigonometry [memory]); the area is n E R².
+    """
+    t = math.tan(radius_m / r / 2) ** 2
+    theta = 2 * math.pi / vertices
+    return vertices * r * r * 2 * math.atan(t * math.sin(theta) / (1 + t * math.cos(theta)))
+
+
+@pytest.mark.parametrize("lat", [0.0, 45.0, 70.0])
+@pytest.mark.parametrize("radius_m", [1_000.0, 100_000.0, 1_000_000.0])
+@pytest.mark.parametrize("vertices", [8, 64, DEFAULT_VERTICES])
+def test_geodesic_circle__on_a_sphere_is_the_exact_spherical_ngon(lat, radius_m, vertices):
+    """On pyproj.Geod(a=R, b=R): vertices at distance r, area = the inscribed spherical n-gon."""
+    poly = geodesic_circle(10.0, lat, radius_m, vertices, geod=SPHERE)
+    lons, lats = ring(poly)
+    _, _, dist = SPHERE.inv(np.full(vertices, 10.0), np.full(vertices, lat), lons, lats)
+    assert np.max(np.abs(np.asarray(dist) - radius_m)) < 1e-6
+    area, _ = SPHERE.polygon_area_perimeter(lons, lats)
+    # Karney's areas are good to ~0.1 m² absolute; the 1 km circle (3e6 m²) sets the tolerance
+    assert area == pytest.approx(spherical_ngon_area(radius_m, vertices), rel=1e-10)
+
+
+@pytest.mark.parametrize("lat", [0.0, 45.0, 70.0])
+@pytest.mark.parametrize("radius_m", [10_000.0, 100_000.0])
+@pytest.mark.parametrize("vertices", [64, DEFAULT_VERTICES])
+def test_geodesic_circle__on_a_sphere_against_the_cap(lat, radius_m, vertices):
+    """Cap area 2πR²(1 − cos(r/R)) (REFERENCES §9) less the deficit (2π/n)²/6 (common practice),
+    to 1% of the deficit (higher-order terms: x²/20 with x = 2π/n, and (r/R)²)."""
+    poly = geodesic_circle(10.0, lat, radius_m, vertices, geod=SPHERE)
+    area, _ = SPHERE.polygon_area_perimeter(*ring(poly))
+    cap = 2 * math.pi * R_SPHERE**2 * (1 - math.cos(radius_m / R_SPHERE))
+    assert 1 - area / cap == pytest.approx((2 * math.pi / vertices) ** 2 / 6, rel=0.01)
+
+
+def test_geodesic_circle__the_ellipsoid_matters():
+    """Guard: the WGS84 and spherical circles differ, so the `geod` argument is really used."""
+    a = geodesic_circle(10.0, 45.0, 100_000.0, 64)
+    b = geodesic_circle(10.0, 45.0, 100_000.0, 64, geod=SPHERE)
+    assert np.max(np.abs(np.asarray(a.exterior.coords) - np.asarray(b.exterior.coords))) > 1e-4  # degrees
 
 
 @pytest.mark.parametrize(

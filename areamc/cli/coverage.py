@@ -7,6 +7,7 @@ import argparse
 from .. import __version__
 from ..coverage import estimate_coverage
 from ..errors import OptionError
+from ..estimate import DEFAULT_POINTS, StopRule
 from ..exact import FLAG_Z
 from ..load import read_layer
 from ..output import Column
@@ -23,7 +24,6 @@ from .common import (
     emit,
     output_format,
     positive_float,
-    stop_rule,
     zone_layer,
 )
 
@@ -96,31 +96,28 @@ def add_parser(sub) -> None:
     p.set_defaults(run=run)
 
 
-def _share_tolerance(args) -> float | None:
-    """``--tolerance`` for shares: ``0.5%`` or ``0.005`` both mean a half-width of 0.005."""
+def _stop(args):
+    """``--tolerance`` for shares: ``0.5%`` is relative to the share, a bare number (0.005) an absolute half-width."""
     if args.tolerance is None:
-        return None
+        return StopRule(points=args.points or DEFAULT_POINTS, max_points=args.max_points)
+    if args.points is not None:
+        raise OptionError("--points and --tolerance exclude each other; give one")
     text = args.tolerance.strip()
     try:
         value = float(text[:-1]) / 100 if text.endswith("%") else float(text)
     except ValueError:
-        raise OptionError(f"--tolerance: expected a share such as 0.005 or 0.5%, got {args.tolerance!r}") from None
+        raise OptionError(f"--tolerance: expected a share such as 0.005 or a percentage such as 0.5%, got {args.tolerance!r}") from None
     if not 0 < value < 1:
-        raise OptionError(f"--tolerance: a share tolerance must lie in (0, 1), got {args.tolerance!r}")
-    return value
+        raise OptionError(f"--tolerance: must lie in (0, 1) as a share or (0%, 100%), got {args.tolerance!r}")
+    if text.endswith("%"):
+        return StopRule(points=None, relative=value, max_points=args.max_points)
+    return StopRule(points=None, absolute=value, max_points=args.max_points)
 
 
 def run(args) -> int:
-    tolerance = _share_tolerance(args)
     if args.fail_on_shortfall and args.claim is None:
         raise OptionError("--fail-on-shortfall needs --claim")
-    saved, args.tolerance = args.tolerance, None
-    stop = stop_rule(args)
-    args.tolerance = saved
-    if tolerance is not None and args.points is None:
-        from ..estimate import StopRule
-
-        stop = StopRule(points=args.max_points)
+    stop = _stop(args)
     check_outputs(args, [args.regions, args.zones])
     regions = read_layer(args.regions, layer=args.layer, id_field=args.id_field, input_crs=args.input_crs)
     zones = zone_layer(args, args.zones, args.zones_layer, args.zones_id_field, args.zones_input_crs)
@@ -136,7 +133,6 @@ def run(args) -> int:
         projected[1],
         ks=args.at_least or (1,),
         stop=stop,
-        share_tolerance=tolerance,
         confidence=args.confidence,
         claim=args.claim,
         seed=args.seed,
