@@ -88,10 +88,21 @@ class ZoneIndex:
 
     def _partial_hits(self, x: np.ndarray, y: np.ndarray, cell: np.ndarray):
         point, zone = _expand(cell, self._indptr, self._partial_zone)
-        if point.size:
+        if not point.size:
+            return point, zone
+        order = np.argsort(zone, kind="stable")
+        point, zone = point[order], zone[order]
+        cut = np.flatnonzero(np.diff(zone)) + 1
+        if point.size < _GROUPED_MIN_TESTS * (cut.size + 1):
+            # few tests per zone: one vectorised call over an array of geometries
             hit = shapely.contains_xy(self._zones[zone], x[point], y[point])
-            point, zone = point[hit], zone[hit]
-        return point, zone
+        else:
+            # many tests per zone: one call per zone is cheaper per test
+            hit = np.empty(point.size, dtype=bool)
+            for lo, hi in zip(np.concatenate([[0], cut]), np.concatenate([cut, [point.size]])):
+                pts = point[lo:hi]
+                hit[lo:hi] = shapely.contains_xy(self._zones[zone[lo]], x[pts], y[pts])
+        return point[hit], zone[hit]
 
     def counts(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
         """Number of zones containing each point (int64 array, shape of `x`); points in plane metres."""
@@ -134,6 +145,8 @@ def _expand(cell: np.ndarray, indptr: np.ndarray, members: np.ndarray) -> tuple[
     return point, members[offset]
 
 
+#: Tests per zone above which testing zone by zone beats one call over a geometry array.
+_GROUPED_MIN_TESTS = 48
 #: Average number of zone boundaries crossing a cell that the default grid aims for.
 _CROSSINGS_PER_CELL = 0.5
 _MAX_CELLS = 256
