@@ -180,7 +180,7 @@ def estimate_overlaps(
             chunk=chunk,
         )
         est = run.estimate(0, confidence)
-        share_a, share_b = est.estimate / area_a[i], est.estimate / area_b[j]
+        share_a, share_b = float(est.estimate / area_a[i]), float(est.estimate / area_b[j])
         if max(share_a, share_b) < min_share:
             continue
         planar = float(exact_pairs[n]) if exact_pairs is not None else None

@@ -7,8 +7,11 @@ by :func:`areamc.output.convert_rows` before they arrive here.
 
 from __future__ import annotations
 
+import numbers
 import os
 import tempfile
+
+import numpy as np
 
 import fiona
 import pyproj
@@ -29,15 +32,34 @@ def vector_driver(path: str | None) -> str | None:
     return VECTOR_DRIVERS.get(os.path.splitext(path)[1].lower())
 
 
-def _field_type(values) -> str:
-    kinds = {type(v) for v in values if v is not None}
-    if kinds <= {bool}:
-        return "int" if kinds else "float"
-    if kinds <= {int, bool}:
+def _kind(value) -> str:
+    if isinstance(value, (bool, np.bool_)):
+        return "bool"
+    if isinstance(value, numbers.Integral):
         return "int"
-    if kinds <= {int, float, bool}:
+    if isinstance(value, numbers.Real):
         return "float"
     return "str"
+
+
+def _field_type(values) -> str:
+    kinds = {_kind(v) for v in values if v is not None}
+    if not kinds:
+        return "float"
+    if kinds <= {"bool", "int"}:
+        return "int"
+    if kinds <= {"bool", "int", "float"}:
+        return "float"
+    return "str"
+
+
+def _value(v):
+    kind = _kind(v) if v is not None else None
+    if kind in ("bool", "int"):
+        return int(v)
+    if kind == "float":
+        return float(v)
+    return v
 
 
 def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, layer: str) -> None:
@@ -60,7 +82,7 @@ def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, lay
     try:
         with fiona.open(tmp, "w", driver=driver, schema=schema, crs=FionaCRS.from_wkt(crs.to_wkt()), layer=layer) as dst:
             for geom, row in zip(geometries, rows):
-                props = {f: (int(v) if isinstance(v, bool) else v) for f, v in row.items()}
+                props = {f: _value(v) for f, v in row.items()}
                 dst.write({"geometry": shapely.geometry.mapping(geom), "properties": props})
         os.replace(tmp, path)
     except BaseException:

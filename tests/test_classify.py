@@ -136,3 +136,22 @@ def test_inside__agrees_with_shapely_contains_on_point_objects(zones):
     for zone in zones[:10]:
         test = inside(zone)
         np.testing.assert_array_equal(test(x, y), shapely.contains(zone, pts))
+
+
+@pytest.mark.parametrize("n_points", [30, 500, 50_000])
+def test_zone_index__few_and_many_points_per_zone(zones, n_points):
+    """Few candidate points per zone (one vectorised call) and many (zone-by-zone calls) agree
+    with the brute-force count."""
+    x, y = random_points(21 + n_points, n_points)
+    np.testing.assert_array_equal(ZoneIndex(zones, BOX, cells=3).counts(x, y), brute_counts(zones, x, y))
+
+
+@pytest.mark.parametrize("cells", [1, None])
+def test_zone_index__pairs_are_every_containing_zone(zones, cells):
+    """pairs(x, y): every (point, zone) with the zone containing the point, none else."""
+    x, y = random_points(31, 5_000)
+    point, zone = ZoneIndex(zones, BOX, cells=cells).pairs(x, y)
+    got = set(zip(point.tolist(), zone.tolist()))
+    assert len(got) == len(point)  # no pair twice
+    expected = {(int(p), z) for z, geom in enumerate(zones) for p in np.flatnonzero(shapely.contains_xy(geom, x, y))}
+    assert got == expected

@@ -279,12 +279,6 @@ def test_overlap__gpkg_output_holds_intersections_in_the_input_crs(capsys, tmp_p
         assert planar.area == pytest.approx(rows[key]["exact_planar"], rel=1e-6)
 
 
-@pytest.mark.xfail(
-    reason="bug: share_a/share_b are numpy float64 (overlap.estimate_overlaps divides by a numpy array) "
-    "and areamc.vector._field_type classifies by exact type(), so they get a 'str' field and fiona "
-    "skips every value: the GeoPackage's share_a/share_b are empty",
-    strict=True,
-)
 def test_overlap__gpkg_output_holds_the_shares(tmp_path, one_layer_doc):
     out = tmp_path / "pairs.gpkg"
     rc = main(["overlap", *ZONES, "-n", "40000", "--seed", "3", "--confidence", "0.999", "-q", "--output", str(out)])

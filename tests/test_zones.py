@@ -5,8 +5,11 @@ Expected values come from outside areamc:
 * distances and azimuths from ``pyproj.Geod(ellps="WGS84").inv`` and polygon areas from
   ``Geod.polygon_area_perimeter`` (Karney 2013, "Algorithms for geodesics", J. Geodesy
   87:43-55), with a Geod built here, not areamc's;
-* the spherical cap 2πR²(1 − cos(r/R)) (standard spherical geometry, REFERENCES.md §9),
-  with R the Gaussian radius of curvature sqrt(M N) at the centre's latitude, where
+* on a sphere, ``pyproj.Geod(a=R, b=R)``: the spherical cap 2πR²(1 − cos(r/R)) (standard
+  spherical geometry, REFERENCES.md §9) and the exact area of the inscribed spherical n-gon
+  from the spherical excess (standard spherical trigonometry [memory]);
+* on WGS84: the same cap with R the Gaussian radius of curvature sqrt(M N) at the centre's
+  latitude, where
   M = a(1 − e²)/(1 − e² sin²φ)^(3/2) and N = a/sqrt(1 − e² sin²φ) (Snyder 1987, USGS
   Professional Paper 1395, eqs. 4-18 and 4-20 [memory for the equation numbers]);
 * the inscribed-polygon deficit: a regular n-gon inscribed in a circle misses a

@@ -172,7 +172,10 @@ def run(args) -> int:
         footer.append(f"exact shares for k >= 2 not computed within --exact-budget for: {', '.join(not_done)}")
     columns = COLUMNS + (CLAIM_COLUMNS if args.claim is not None else ())
     if density is not None:
-        columns += POPULATION_COLUMNS + ((Column("population_verdict", "pop_verdict"),) if args.claim is not None else ())
+        # a narrower area part, so the population columns fit beside it
+        columns = tuple(c for c in COLUMNS if c.field in ("id", "at_least", "share", "ci_low", "ci_high", "exact_share"))
+        columns += ((Column("verdict"),) if args.claim is not None else ()) + POPULATION_COLUMNS
+        columns += (Column("population_verdict", "pop_verdict"),) if args.claim is not None else ()
     if output_format(args) != "table":
         columns = ALL_FIELDS + CLAIM_COLUMNS
     by_id = dict(zip(regions.ids, regions.geometries))
