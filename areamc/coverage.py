@@ -54,7 +54,8 @@ class CoverageRow:
         shapely's ``area(region ∩ covered set) / area(region)``; None when not
         computed (time budget, or ``exact=False``).
     z : float or None
-        ``(share − exact_share) / stderr``.
+        ``(share − exact_share) / scale`` with the standard error as scale,
+        floored at the interval half-width over z when all or no points hit.
     claim, verdict : float or None, str or None
         The claimed share and "meets", "falls short" or "undecided".
     """

@@ -108,12 +108,12 @@ def _fail(text: str, node: ast.AST, what: str, verdict: str = "not allowed"):
 
 def parse_expression(text: str) -> Expression:
     """Parse and check a density expression, or raise :class:`OptionError` naming the offending part."""
+    text = " ".join(str(text).split())  # one line, so column offsets point into the quoted text
     try:
-        tree = ast.parse(text.strip(), mode="eval")
+        tree = ast.parse(text, mode="eval")
     except SyntaxError as err:
         col = (err.offset or 1)
         raise OptionError(f"--density: syntax error in expression {text!r} at column {col}: {err.msg}") from None
-    text = text.strip()
     names: set[str] = set()
     for node in ast.walk(tree):
         if isinstance(node, (ast.Expression, ast.Load)) or type(node) in _BINARY or type(node) in _UNARY or type(node) in _COMPARE:
@@ -152,7 +152,7 @@ def _is_called(tree: ast.AST, name: ast.Name) -> bool:
 
 def _eval(node: ast.AST, env: dict):
     if isinstance(node, ast.Constant):
-        return float(node.value)
+        return np.float64(node.value)  # numpy scalars: 1/0 gives inf, not ZeroDivisionError
     if isinstance(node, ast.Name):
         if node.id in env:
             return env[node.id]

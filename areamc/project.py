@@ -153,8 +153,9 @@ def _step_in_crs_units(crs: pyproj.CRS, step_m: float) -> float:
 def densify(geoms: np.ndarray, crs: pyproj.CRS, step_m: float = DEFAULT_DENSIFY_M) -> np.ndarray:
     """Insert vertices so no edge is longer than `step_m` metres, in the layer's own CRS.
 
-    On a geographic CRS the step becomes ``step_m / 111 320`` degrees, which is
-    at most `step_m` metres anywhere.  Edges keep the straight path they have in
+    On a geographic CRS the step becomes ``step_m / 111 320`` degrees: about
+    `step_m` metres along a meridian (a degree of latitude is 110.6 to 111.7
+    km), less along parallels away from the equator.  Edges keep the straight path they have in
     the source coordinates, so reprojection bends them as the source intends.
     """
     if not step_m > 0:
@@ -367,6 +368,8 @@ def project_layers(
     """
     dense = [densify(layer.geometries, layer.crs, densify_m) for layer in layers]
     lonlat = [_transform_all(d, transformer(layer.crs, LONLAT), layer) for d, layer in zip(dense, layers)]
+    for ll, layer in zip(lonlat, layers):
+        _warn_wide(ll, layer)
     if plane is None:
         plane = resolve_plane(lonlat_bounds(np.concatenate(lonlat)), crs)
     out = []
@@ -374,6 +377,24 @@ def project_layers(
         planar = _transform_all(d, transformer(layer.crs, plane.crs), layer)
         out.append(ProjectedLayer(layer.ids, planar, ll, plane, densify_m, layer))
     return out
+
+
+def _warn_wide(lonlat: np.ndarray, layer: Layer) -> None:
+    """Warn about features spanning more than 180° of longitude: likely antimeridian crossings."""
+    bounds = shapely.bounds(lonlat)
+    wide = np.flatnonzero(bounds[:, 2] - bounds[:, 0] > 180)
+    if wide.size:
+        import warnings
+
+        from .load import AreamcWarning
+
+        names = ", ".join(layer.ids[i] for i in wide[:5])
+        warnings.warn(
+            f"{layer.source}: {wide.size} feature(s) span more than 180 degrees of longitude ({names}); "
+            "edges crossing the antimeridian are read the long way round, which areamc does not support",
+            AreamcWarning,
+            stacklevel=3,
+        )
 
 
 def _transform_all(geoms: np.ndarray, trans: pyproj.Transformer, layer: Layer) -> np.ndarray:

@@ -108,7 +108,7 @@ def run(args) -> int:
         )
     if args.trace:
         write_text(_trace_csv(report, args.units), args.trace)
-    emit(args, rows, COLUMNS if output_format(args) == "table" else ALL_AREA_FIELDS, metadata, header, footer,
+    emit(args, rows, COLUMNS, metadata, header, footer, fields=ALL_AREA_FIELDS,
          features=(layer.geometries, layer.crs, "areas"))
     return 0
 

@@ -34,7 +34,8 @@ class Parser(argparse.ArgumentParser):
     """ArgumentParser whose usage errors are one line and exit status 2."""
 
     def error(self, message: str):  # noqa: D401 - argparse API
-        raise OptionError(f"{self.prog}: {message}")
+        command = self.prog.removeprefix("areamc").strip()
+        raise OptionError(f"{command}: {message}" if command else message)
 
 
 def positive_int(text: str) -> int:
@@ -116,7 +117,8 @@ def add_sampling_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--seed", "-s", type=non_negative_int, metavar="INT",
                         help="seed for reproducible runs (default: fresh, recorded in the output)")
     parser.add_argument("--chunk", type=positive_int, default=DEFAULT_CHUNK, metavar="N",
-                        help=f"points per chunk, bounds memory; results do not depend on it (default {DEFAULT_CHUNK})")
+                        help=f"points per chunk, bounds memory; fixed-count results do not depend on it, while --tolerance "
+                        f"and --claim stop only at chunk ends (default {DEFAULT_CHUNK})")
 
 
 def stop_rule(args) -> StopRule:
@@ -129,7 +131,7 @@ def stop_rule(args) -> StopRule:
     return StopRule(points=None, absolute=absolute, relative=relative, max_points=args.max_points)
 
 
-def add_layer_options(parser: argparse.ArgumentParser, *, prefix: str = "", what: str = "the layer") -> None:
+def add_layer_options(parser: argparse.ArgumentParser, *, prefix: str = "", what: str = "the input file") -> None:
     """``--layer``, ``--id-field`` and ``--input-crs`` for one input file."""
     parser.add_argument(f"--{prefix}layer", metavar="NAME", help=f"layer of {what}, for files with several layers (default: the first)")
     parser.add_argument(f"--{prefix}id-field", metavar="FIELD", help="attribute that labels features (default: the feature id)")
@@ -149,7 +151,7 @@ def add_output_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--output", "-o", metavar="PATH",
                         help="write results here instead of stdout (.csv, .json, or .gpkg/.geojson for features)")
     parser.add_argument("--units", default="m2", choices=list(AREA_UNITS), help="area unit of the output (default m2)")
-    parser.add_argument("--quiet", "-q", action="store_true", help="no progress bar and no notes on stderr")
+    parser.add_argument("--quiet", "-q", action="store_true", help="no progress bar (warnings are still shown)")
     parser.add_argument("--verbose", "-v", action="store_true", help="show tracebacks of errors")
 
 
@@ -179,17 +181,22 @@ def zone_layer(args, path: str, layer: str | None, id_field: str | None, input_c
                       radius_field=args.radius_field, vertices=args.circle_vertices)
 
 
-def emit(args, rows, columns, metadata, header=(), footer=(), features=None) -> None:
+def emit(args, rows, columns, metadata, header=(), footer=(), features=None, fields=None) -> None:
     """Render rows per the output options and write them to ``--output`` or stdout.
 
+    `columns` are the table's; `fields` (default `columns`) name every area or
+    per-area field, for unit conversion in CSV, JSON and feature output.
     `features` is ``(geometries, crs, layer_name)`` for a GeoPackage/GeoJSON ``--output``.
     """
+    fields = columns if fields is None else fields
     if vector_driver(args.output):
         if features is None:
             raise OptionError(f"--output {args.output}: this command writes no features; use .csv or .json")
         geoms, crs, layer = features
-        write_features(args.output, geoms, convert_rows(rows, columns, args.units), crs, layer)
+        write_features(args.output, geoms, convert_rows(rows, fields, args.units), crs, layer)
         return
+    if output_format(args) != "table":
+        columns = fields
     text = render(rows, columns, fmt=output_format(args), units=args.units, metadata=metadata, header=header, footer=footer)
     if args.output:
         write_text(text, args.output)

@@ -54,7 +54,7 @@ ALL_FIELDS = COLUMNS + (
     Column("covered", area=True),
     Column("uncovered_ci_low", area=True),
     Column("uncovered_ci_high", area=True),
-)
+)  # with the table's columns: every field that holds an area, for unit conversion
 
 
 def _k(text: str) -> int:
@@ -114,6 +114,15 @@ def _stop(args):
     return StopRule(points=None, absolute=value, max_points=args.max_points)
 
 
+def _tally(what: str, verdicts, claim: float, confidence: float) -> str:
+    decided = [v for v in verdicts if v is not None]
+    if not decided:
+        return f"{what} >= {claim:g}: no verdict (needs importance sampling)"
+    counts = {v: decided.count(v) for v in ("meets", "falls short", "undecided")}
+    return (f"{what} >= {claim:g}: {counts['meets']} meet, {counts['falls short']} fall short, "
+            f"{counts['undecided']} undecided at confidence {confidence:g}")
+
+
 def run(args) -> int:
     if args.fail_on_shortfall and args.claim is None:
         raise OptionError("--fail-on-shortfall needs --claim")
@@ -149,6 +158,10 @@ def run(args) -> int:
         "command": " ".join(args.argv),
         "inputs": [{"path": l.path, "layer": l.layer, "crs": l.crs.to_string(), "features": len(l)} for l in (regions, zones)],
         **report.metadata(),
+        "density": None if source_input is None else {
+            "source": args.density, "kind": source_input.kind, "count_field": args.count_field,
+            "raster_values": args.raster_values if source_input.kind == "raster" else None,
+            "importance": not args.no_importance},
     }
     method = "confidence sequences (valid under early stopping)" if args.claim is not None else "Wilson intervals"
     if density is not None:
@@ -160,10 +173,10 @@ def run(args) -> int:
     ]
     footer = [""]
     if args.claim is not None:
-        short = sum(r.verdict == "falls short" for r in report.rows)
-        undecided = sum(r.verdict == "undecided" for r in report.rows)
-        footer.append(f"claim: share >= {args.claim:g}: {len(rows) - short - undecided} meet, {short} fall short, "
-                      f"{undecided} undecided at confidence {report.confidence:g}")
+        footer.append(_tally("claim: area share", [r.verdict for r in report.rows], args.claim, report.confidence))
+        if density is not None:
+            footer.append(_tally("claim: population share", [r.population_verdict for r in report.rows],
+                                 args.claim, report.confidence))
     flagged = sum(r.flagged for r in report.rows)
     footer.append(f"{flagged} row(s) flagged: more than {FLAG_Z:g} standard errors from the exact share" if flagged
                   else f"no estimate deviates from its exact share by more than {FLAG_Z:g} standard errors")
@@ -176,9 +189,8 @@ def run(args) -> int:
         columns = tuple(c for c in COLUMNS if c.field in ("id", "at_least", "share", "ci_low", "ci_high", "exact_share"))
         columns += ((Column("verdict"),) if args.claim is not None else ()) + POPULATION_COLUMNS
         columns += (Column("population_verdict", "pop_verdict"),) if args.claim is not None else ()
-    if output_format(args) != "table":
-        columns = ALL_FIELDS + CLAIM_COLUMNS
     by_id = dict(zip(regions.ids, regions.geometries))
     geoms = [by_id[r.id] for r in report.rows] if args.output else None
-    emit(args, rows, columns, metadata, header, footer, features=(geoms, regions.crs, "coverage"))
+    emit(args, rows, columns, metadata, header, footer, features=(geoms, regions.crs, "coverage"),
+         fields=ALL_FIELDS + CLAIM_COLUMNS + POPULATION_COLUMNS)
     return 1 if args.fail_on_shortfall and report.shortfall else 0

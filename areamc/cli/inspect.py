@@ -7,7 +7,9 @@ import sys
 from .. import __version__
 from ..exact import geodesic_area, planar_area
 from ..load import list_layers, read_layer
+from ..errors import OptionError
 from ..output import Column, render, render_fields, write_text
+from ..vector import vector_driver
 from ..project import LONLAT, lonlat_bounds, project_layer, resolve_plane, transformer, transform_geometry
 from .common import add_layer_options, add_output_options, add_plane_options, check_outputs, output_format
 
@@ -42,6 +44,8 @@ def add_parser(sub) -> None:
 
 
 def run(args) -> int:
+    if vector_driver(args.output):
+        raise OptionError(f"--output {args.output}: inspect writes text; use .csv, .json or a text file")
     check_outputs(args, [args.file])
     layers = list_layers(args.file)
     layer = read_layer(args.file, layer=args.layer, id_field=args.id_field, input_crs=args.input_crs, kind="any")

@@ -98,8 +98,9 @@ def run(args) -> int:
     flagged = sum(r.flagged for r in report.rows)
     footer = ["", f"{flagged} row(s) flagged: more than {FLAG_Z:g} standard errors from the exact total" if flagged
               else f"all totals within {FLAG_Z:g} standard errors of the exact total" if not args.no_exact and
-              any(r.exact is not None for r in report.rows) else "no exact total for this density source"]
+              any(r.exact is not None for r in report.rows) else
+              "exact totals skipped (--no-exact)" if args.no_exact else "no exact total for this density source"]
     geoms = list(regions.geometries) if args.output else None
-    emit(args, rows, COLUMNS if output_format(args) == "table" else ALL_FIELDS, metadata, header, footer,
+    emit(args, rows, COLUMNS, metadata, header, footer, fields=ALL_FIELDS,
          features=(geoms, regions.crs, "totals"))
     return 0

@@ -50,6 +50,7 @@ PROFILE_COLUMNS = (
     Column("exact_at_least", "exact", area=True),
     Column("z", spec=".2f"),
 )
+PROFILE_FIELDS = PROFILE_COLUMNS + (Column("at_least_stderr", area=True),)
 
 
 def add_parser(sub) -> None:
@@ -121,13 +122,13 @@ def run(args) -> int:
         footer += ["", f"multiplicity profile (area covered by exactly k / at least k zones; exact: {report.exact_profile})"]
         footer.append(table(profile, PROFILE_COLUMNS, args.units).rstrip("\n"))
     geoms = _pair_geometries(report, projected, layers[0]) if args.output else None
-    emit(args, rows, COLUMNS if output_format(args) == "table" else ALL_FIELDS, metadata, header, footer,
+    emit(args, rows, COLUMNS, metadata, header, footer, fields=ALL_FIELDS,
          features=(geoms, layers[0].crs, "overlaps"))
     return 0
 
 
 def _convert(profile, units):
-    return convert_rows(profile, PROFILE_COLUMNS, units)
+    return convert_rows(profile, PROFILE_FIELDS, units)
 
 
 def _pair_geometries(report, projected, first_layer):
