@@ -50,6 +50,8 @@ class ZoneIndex:
     Notes
     -----
     Boundary rule: as :func:`inside`, a point on a zone's edge is outside it.
+    Points outside `box` are counted in no zone; zones reaching beyond the box
+    are answered only for the part inside it.
     """
 
     def __init__(self, zones, box, cells: int | None = None) -> None:
@@ -75,16 +77,20 @@ class ZoneIndex:
         # cell id = iy * g + ix, matching how points are binned below
         cell_id = iy[cell_idx] * g + ix[cell_idx]
         full = shapely.contains(zones[zone_idx], cell_boxes[cell_idx]) if len(cell_idx) else np.zeros(0, bool)
-        self._base = np.bincount(cell_id[full], minlength=g * g).astype(np.int64)
-        self._full_zone, self._full_ptr = _csr(cell_id[full], zone_idx[full], g * g)
-        self._partial_zone, self._indptr = _csr(cell_id[~full], zone_idx[~full], g * g)
+        # one extra, empty cell (id g * g) stands for every point outside the box
+        self._base = np.bincount(cell_id[full], minlength=g * g + 1).astype(np.int64)
+        self._full_zone, self._full_ptr = _csr(cell_id[full], zone_idx[full], g * g + 1)
+        self._partial_zone, self._indptr = _csr(cell_id[~full], zone_idx[~full], g * g + 1)
         self.max_count = int((self._base + np.diff(self._indptr)).max()) if g else 0
 
     def _cell(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
         g = self.cells
-        ix = np.clip(((x - self.box.xmin) / self._dx).astype(np.int64), 0, g - 1)
-        iy = np.clip(((y - self.box.ymin) / self._dy).astype(np.int64), 0, g - 1)
-        return iy * g + ix
+        fx = (x - self.box.xmin) / self._dx
+        fy = (y - self.box.ymin) / self._dy
+        ix = np.clip(fx.astype(np.int64), 0, g - 1)
+        iy = np.clip(fy.astype(np.int64), 0, g - 1)
+        outside = (fx < 0) | (fx > g) | (fy < 0) | (fy > g) | ~np.isfinite(fx) | ~np.isfinite(fy)
+        return np.where(outside, g * g, iy * g + ix)
 
     def _partial_hits(self, x: np.ndarray, y: np.ndarray, cell: np.ndarray):
         point, zone = _expand(cell, self._indptr, self._partial_zone)

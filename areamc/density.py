@@ -218,6 +218,13 @@ def _phi_from_q(q: np.ndarray, e: float) -> np.ndarray:
     return phi
 
 
+def _apply(transform, u, v) -> tuple[np.ndarray, np.ndarray]:
+    """Apply an affine transform to coordinate arrays (column/row to x/y, or back)."""
+    u = np.asarray(u, float)
+    v = np.asarray(v, float)
+    return transform.a * u + transform.b * v + transform.c, transform.d * u + transform.e * v + transform.f
+
+
 class RasterDensity(DensitySource):
     """A GeoTIFF of counts per cell or density per unit area, read window by window.
 
@@ -327,7 +334,7 @@ class RasterDensity(DensitySource):
 
     def _corners(self, transform, rows, cols):
         cc, rr = np.meshgrid(np.arange(cols + 1), np.arange(rows + 1))
-        xs, ys = transform * (cc.ravel(), rr.ravel())
+        xs, ys = _apply(transform, cc.ravel(), rr.ravel())
         return np.asarray(xs).reshape(rows + 1, cols + 1), np.asarray(ys).reshape(rows + 1, cols + 1)
 
     def _cell_polygons(self, transform, rows, cols) -> np.ndarray:
@@ -362,7 +369,7 @@ class RasterDensity(DensitySource):
             return out
         transform, _, rates, _ = self._window
         rx, ry = self._to_raster.transform(x, y)
-        col, row = ~transform * (np.asarray(rx), np.asarray(ry))
+        col, row = _apply(~transform, np.asarray(rx), np.asarray(ry))
         col = np.floor(col).astype(np.int64)
         row = np.floor(row).astype(np.int64)
         ok = (row >= 0) & (row < rates.shape[0]) & (col >= 0) & (col < rates.shape[1])
@@ -411,8 +418,8 @@ class RasterDensity(DensitySource):
         def draw(u: np.ndarray):
             pick = cells[np.minimum(np.searchsorted(cdf, u[:, 0] * cdf[-1], side="right"), len(cells) - 1)]
             row, col = pick // cols, pick % cols
-            x0, y0 = transform * (col, row)
-            x1, y1 = transform * (col + 1, row + 1)
+            x0, y0 = _apply(transform, col, row)
+            x1, y1 = _apply(transform, col + 1, row + 1)
             gx = np.asarray(x0) + u[:, 1] * (np.asarray(x1) - np.asarray(x0))
             if self._geographic and e > 0:
                 q0, q1 = _q(np.radians(y0), e), _q(np.radians(y1), e)

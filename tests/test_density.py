@@ -128,11 +128,24 @@ def test_block__worked_example_in_fractions(worked):
 
 def test_block__density_is_count_over_block_area(worked):
     _, source, _ = worked
-    x = np.array([1 * KM, 5 * KM, 0.5 * KM, 3.9 * KM, 6.5 * KM, 2 * KM])
-    y = np.array([1 * KM, 2.5 * KM, 4 * KM, 4 * KM, 1 * KM, -1 * KM])
-    # A: 8 / 8 km², B: 3 / 6 km², C: 6 / 6 km², above the hypotenuse: 0, outside: 0 (constructed here)
-    expected = np.array([1.0, 0.5, 1.0, 0.0, 0.0, 0.0]) / KM**2
+    x = np.array([1 * KM, 5 * KM, 0.5 * KM, 3.9 * KM, 5 * KM])
+    y = np.array([1 * KM, 2.5 * KM, 4 * KM, 4 * KM, 4 * KM])
+    # A: 8 / 8 km², B: 3 / 6 km², C: 6 / 6 km², above C's hypotenuse: 0, above B: 0 (constructed here)
+    expected = np.array([1.0, 0.5, 1.0, 0.0, 0.0]) / KM**2
     np.testing.assert_allclose(source.density(x, y), expected, rtol=1e-12, atol=0)
+
+
+@pytest.mark.xfail(
+    reason="areamc bug: BlockDensity.density gives a point outside the blocks' bounding box the rate of "
+    "the nearest edge block (ZoneIndex._cell clamps it into an edge cell, whose fully covering blocks "
+    "are counted without a containment test); expected density 0 there",
+    strict=True,
+)
+def test_block__density_outside_the_blocks_bounding_box_is_zero(worked):
+    _, source, _ = worked
+    # (6.5 km, 1 km) lies east of B, (2 km, -1 km) south of A: no block holds them (constructed here)
+    got = source.density(np.array([6.5 * KM, 2 * KM]), np.array([1 * KM, -1 * KM]))
+    np.testing.assert_array_equal(got, [0.0, 0.0])
 
 
 def test_block__proposal_draws_blocks_by_count_and_points_uniformly(worked):
@@ -203,13 +216,11 @@ def test_block__density_at_random_points(grid):
     _, blocks, counts = grid
     source = BlockDensity(blocks, counts)
     rng = np.random.default_rng(3)
-    x = rng.uniform(-2000, N_SIDE * CELL + 2000, 5000)
-    y = rng.uniform(-2000, N_SIDE * CELL + 2000, 5000)
+    x = rng.uniform(0, N_SIDE * CELL, 5000)
+    y = rng.uniform(0, N_SIDE * CELL, 5000)
     # block index from the grid arithmetic (constructed here): row-major over (iy, ix)
     ix, iy = np.floor(x / CELL).astype(int), np.floor(y / CELL).astype(int)
-    inside = (ix >= 0) & (ix < N_SIDE) & (iy >= 0) & (iy < N_SIDE)
-    expected = np.zeros_like(x)
-    expected[inside] = counts[iy[inside] * N_SIDE + ix[inside]] / CELL**2
+    expected = counts[iy * N_SIDE + ix] / CELL**2
     np.testing.assert_allclose(source.density(x, y), expected, rtol=1e-12, atol=0)
 
 
@@ -243,7 +254,7 @@ def test_block__all_zero_counts_give_no_proposal(grid):
         ({"population": "str"}, ["12", "many"], "'many'"),  # non-numeric
         ({"population": "int"}, [4, -3], "-3"),  # negative
         ({"population": "float"}, [4.0, None], "None"),  # null
-        ({"population": "float"}, [4.0, float("nan")], "nan"),  # not a number
+        ({"population": "str"}, ["4", "nan"], "'nan'"),  # not a number (GeoPackage stores a float NaN as NULL)
     ],
 )
 def test_block_counts__refuses_bad_counts(tmp_path, schema, values, message):
@@ -320,8 +331,10 @@ def test_raster__constant_density_in_the_plane(tmp_path):
     source.prepare(pregion.planar[0])
     assert source.exact_total(pregion.planar[0]) == pytest.approx(0.004 * region.area, rel=1e-9)
     rng = np.random.default_rng(1)
-    x, y = rng.uniform(-1500, 1500, 1000), rng.uniform(-900, 900, 1000)
-    np.testing.assert_allclose(source.density(x, y), 0.004, rtol=1e-12)
+    x, y = rng.uniform(-1600, 2000, 3000), rng.uniform(-1260, 660, 3000)  # the region's bounds
+    keep = shapely.contains_xy(region, x, y)
+    assert keep.sum() > 1000
+    np.testing.assert_allclose(source.density(x[keep], y[keep]), 0.004, rtol=1e-12)
     # far outside the raster window: 0
     assert source.density(np.array([50_000.0]), np.array([0.0]))[0] == 0.0
 
@@ -499,13 +512,10 @@ def test_expression__negative_or_non_finite_density_stops(text, shown):
     assert repr(text) in message and f"gives {shown}" in message
 
 
-@pytest.mark.xfail(
-    reason="areamc bug: ExpressionDensity.density on '1/0 + x' raises ZeroDivisionError from "
-    "expression._eval (Python float arithmetic) instead of InputError for a non-finite density",
-    strict=True,
-)
-def test_expression__division_by_zero_is_a_non_finite_density():
+@pytest.mark.parametrize("text", ["1/0 + x", "5 % 0 + x", "10**400 + x", "(-8)**0.5 + x"])
+def test_expression__constant_arithmetic_errors_are_non_finite_densities(text):
+    # IEEE 754 as numpy applies it: inf or nan, then refused as a density
     (region,) = on_plane([box(-5000, -5000, 5000, 5000)])
-    source = ExpressionDensity("1/0 + x", region.plane)
+    source = ExpressionDensity(text, region.plane)
     with pytest.raises(InputError, match="non-negative and finite"):
         source.density(np.array([100.0]), np.array([5.0]))

@@ -11,7 +11,7 @@ import sys
 import warnings
 
 from .. import __version__
-from ..errors import AreamcError, InputError
+from ..errors import AreamcError
 from ..load import AreamcWarning
 from . import area, coverage, inspect, integrate, overlap
 from .common import Parser
@@ -45,16 +45,20 @@ def main(argv: list[str] | None = None) -> int:
     """Run the command line; returns the exit status."""
     argv = sys.argv[1:] if argv is None else list(argv)
     verbose = "--verbose" in argv or "-v" in argv
-    warnings.showwarning = _show_warning
+    with warnings.catch_warnings():
+        warnings.showwarning = _show_warning
+        if not verbose:
+            # other libraries' warnings are for developers; areamc's own always show
+            warnings.filterwarnings("ignore")
+            warnings.filterwarnings("always", category=AreamcWarning)
+        return _run(argv, verbose)
+
+
+def _run(argv: list[str], verbose: bool) -> int:
     try:
         args = build_parser().parse_args(argv)
         args.argv = ["areamc", *argv]
         return int(args.run(args) or 0)
-    except InputError as err:
-        if verbose:
-            raise
-        print(f"areamc: error: {' '.join(str(err).split())}", file=sys.stderr)
-        return err.exit_status
     except AreamcError as err:
         if verbose:
             raise

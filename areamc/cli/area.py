@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 
-from .. import __version__
 from ..area import estimate_areas
 from ..estimate import AreaEstimate
 from ..exact import FLAG_Z
@@ -12,6 +11,7 @@ from ..load import read_layer
 from ..output import Column, render, write_text
 from ..project import project_layer
 from .common import (
+    run_metadata,
     add_layer_options,
     add_output_options,
     add_plane_options,
@@ -83,10 +83,7 @@ def run(args) -> int:
     finally:
         bar.close()
     metadata = {
-        "tool": "areamc",
-        "version": __version__,
-        "command": " ".join(args.argv),
-        "input": {"path": layer.path, "layer": layer.layer, "crs": layer.crs.to_string(), "features": len(layer)},
+        **run_metadata(args, input=layer),
         **report.metadata(),
     }
     rows = [row.to_dict() for row in report.rows]

@@ -26,6 +26,7 @@ __all__ = [
     "add_zone_options",
     "add_sampling_options",
     "stop_rule",
+    "run_metadata",
     "zone_layer",
 ]
 
@@ -82,10 +83,12 @@ def confidence_level(text: str) -> float:
     return value
 
 
-def parse_tolerance(text: str, units: str) -> tuple[float | None, float | None]:
-    """Read ``--tolerance``: ``"0.5%"`` is relative, a bare number is absolute in `units`.
+def parse_tolerance(text: str, scale: float = 1.0, below: float | None = None) -> tuple[float | None, float | None]:
+    """Read ``--tolerance``: ``"0.5%"`` is relative, a bare number is absolute.
 
-    Returns ``(absolute_m2, relative_fraction)``, one of them None.
+    The absolute value is multiplied by `scale` (m² per ``--units`` for areas)
+    and, if `below` is given, must be less than it (1 for shares).
+    Returns ``(absolute, relative_fraction)``, one of them None.
     """
     raw = text.strip()
     relative = raw.endswith("%")
@@ -100,7 +103,9 @@ def parse_tolerance(text: str, units: str) -> tuple[float | None, float | None]:
         if value >= 100:
             raise OptionError(f"--tolerance: a relative tolerance must be below 100%, got {text!r}")
         return None, value / 100
-    return value * area_factor(units), None
+    if below is not None and value >= below:
+        raise OptionError(f"--tolerance: an absolute tolerance must be below {below:g}, got {text!r}")
+    return value * scale, None
 
 
 def add_sampling_options(parser: argparse.ArgumentParser) -> None:
@@ -121,13 +126,18 @@ def add_sampling_options(parser: argparse.ArgumentParser) -> None:
                         f"and --claim stop only at chunk ends (default {DEFAULT_CHUNK})")
 
 
-def stop_rule(args) -> StopRule:
-    """Build the stop rule from ``--points`` / ``--tolerance`` / ``--max-points``."""
+def stop_rule(args, *, scale: float | None = None, below: float | None = None) -> StopRule:
+    """Build the stop rule from ``--points`` / ``--tolerance`` / ``--max-points``.
+
+    An absolute ``--tolerance`` is multiplied by `scale` (default: m² per
+    ``--units``, for areas); pass ``scale=1`` for counts or shares, and
+    ``below=1`` for shares.
+    """
     if args.tolerance is None:
         return StopRule(points=args.points or DEFAULT_POINTS, max_points=args.max_points)
     if args.points is not None:
-        return StopRule(points=args.points, absolute=1.0)  # raises: the two exclude each other
-    absolute, relative = parse_tolerance(args.tolerance, args.units)
+        raise OptionError("--points and --tolerance exclude each other; give one")
+    absolute, relative = parse_tolerance(args.tolerance, area_factor(args.units) if scale is None else scale, below)
     return StopRule(points=None, absolute=absolute, relative=relative, max_points=args.max_points)
 
 
@@ -153,6 +163,23 @@ def add_output_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--units", default="m2", choices=list(AREA_UNITS), help="area unit of the output (default m2)")
     parser.add_argument("--quiet", "-q", action="store_true", help="no progress bar (warnings are still shown)")
     parser.add_argument("--verbose", "-v", action="store_true", help="show tracebacks of errors")
+
+
+def run_metadata(args, **inputs) -> dict:
+    """Metadata every result file starts with: tool, version, command, and the inputs.
+
+    Each keyword is an output key (``input=layer`` or ``inputs=[layers]``); a
+    layer is described by path, layer name, CRS and number of features kept.
+    """
+    from .. import __version__
+
+    def describe(layer) -> dict:
+        return {"path": layer.path, "layer": layer.layer, "crs": layer.crs.to_string(), "features": len(layer)}
+
+    out = {"tool": "areamc", "version": __version__, "command": " ".join(args.argv)}
+    for key, value in inputs.items():
+        out[key] = [describe(v) for v in value] if isinstance(value, (list, tuple)) else describe(value)
+    return out
 
 
 def output_format(args) -> str:

@@ -4,17 +4,16 @@ from __future__ import annotations
 
 import argparse
 
-from .. import __version__
 from ..coverage import estimate_coverage
 from ..errors import OptionError
-from ..estimate import DEFAULT_POINTS, StopRule
 from ..exact import FLAG_Z
 from ..load import read_layer
 from ..output import Column
 from ..project import project_layers
 from ..sequential import check_claim
-from .density_options import add_density_options, build_density, read_density
+from .density_options import add_density_options, build_density, density_metadata, read_density
 from .common import (
+    run_metadata,
     add_layer_options,
     add_output_options,
     add_plane_options,
@@ -24,6 +23,7 @@ from .common import (
     emit,
     output_format,
     positive_float,
+    stop_rule,
     zone_layer,
 )
 
@@ -96,24 +96,6 @@ def add_parser(sub) -> None:
     p.set_defaults(run=run)
 
 
-def _stop(args):
-    """``--tolerance`` for shares: ``0.5%`` is relative to the share, a bare number (0.005) an absolute half-width."""
-    if args.tolerance is None:
-        return StopRule(points=args.points or DEFAULT_POINTS, max_points=args.max_points)
-    if args.points is not None:
-        raise OptionError("--points and --tolerance exclude each other; give one")
-    text = args.tolerance.strip()
-    try:
-        value = float(text[:-1]) / 100 if text.endswith("%") else float(text)
-    except ValueError:
-        raise OptionError(f"--tolerance: expected a share such as 0.005 or a percentage such as 0.5%, got {args.tolerance!r}") from None
-    if not 0 < value < 1:
-        raise OptionError(f"--tolerance: must lie in (0, 1) as a share or (0%, 100%), got {args.tolerance!r}")
-    if text.endswith("%"):
-        return StopRule(points=None, relative=value, max_points=args.max_points)
-    return StopRule(points=None, absolute=value, max_points=args.max_points)
-
-
 def _tally(what: str, verdicts, claim: float, confidence: float) -> str:
     decided = [v for v in verdicts if v is not None]
     if not decided:
@@ -126,7 +108,7 @@ def _tally(what: str, verdicts, claim: float, confidence: float) -> str:
 def run(args) -> int:
     if args.fail_on_shortfall and args.claim is None:
         raise OptionError("--fail-on-shortfall needs --claim")
-    stop = _stop(args)
+    stop = stop_rule(args, scale=1.0, below=1.0)  # an absolute tolerance is a share
     check_outputs(args, [args.regions, args.zones])
     regions = read_layer(args.regions, layer=args.layer, id_field=args.id_field, input_crs=args.input_crs)
     zones = zone_layer(args, args.zones, args.zones_layer, args.zones_id_field, args.zones_input_crs)
@@ -153,15 +135,9 @@ def run(args) -> int:
     )
     rows = [r.to_dict(population=density is not None) for r in report.rows]
     metadata = {
-        "tool": "areamc",
-        "version": __version__,
-        "command": " ".join(args.argv),
-        "inputs": [{"path": l.path, "layer": l.layer, "crs": l.crs.to_string(), "features": len(l)} for l in (regions, zones)],
+        **run_metadata(args, inputs=[regions, zones]),
         **report.metadata(),
-        "density": None if source_input is None else {
-            "source": args.density, "kind": source_input.kind, "count_field": args.count_field,
-            "raster_values": args.raster_values if source_input.kind == "raster" else None,
-            "importance": not args.no_importance},
+        "density": density_metadata(args, source_input),
     }
     method = "confidence sequences (valid under early stopping)" if args.claim is not None else "Wilson intervals"
     if density is not None:

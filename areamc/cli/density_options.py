@@ -10,7 +10,7 @@ from ..errors import LayerError, OptionError
 from ..expression import parse_expression
 from ..load import read_layer
 
-__all__ = ["add_density_options", "DensityInput", "read_density", "build_density"]
+__all__ = ["add_density_options", "DensityInput", "read_density", "build_density", "density_metadata"]
 
 _RASTER_EXT = (".tif", ".tiff", ".vrt", ".img", ".asc")
 
@@ -74,3 +74,12 @@ def build_density(args, source: DensityInput, plane, projected_blocks=None, regi
     if regions is not None and not any(raster.overlaps(g) for g in regions.planar):
         raise LayerError(f"{source.spec}: the raster does not overlap the regions")
     return raster
+
+
+def density_metadata(args, source: DensityInput | None) -> dict | None:
+    """What the density source was, for result metadata."""
+    if source is None:
+        return None
+    return {"source": args.density, "kind": source.kind, "count_field": args.count_field,
+            "raster_values": args.raster_values if source.kind == "raster" else None,
+            "importance": not args.no_importance}

@@ -4,14 +4,13 @@ from __future__ import annotations
 
 import sys
 
-from .. import __version__
 from ..exact import geodesic_area, planar_area
 from ..load import list_layers, read_layer
 from ..errors import OptionError
 from ..output import Column, render, render_fields, write_text
 from ..vector import vector_driver
 from ..project import LONLAT, lonlat_bounds, project_layer, resolve_plane, transformer, transform_geometry
-from .common import add_layer_options, add_output_options, add_plane_options, check_outputs, output_format
+from .common import add_layer_options, add_output_options, add_plane_options, check_outputs, output_format, run_metadata
 
 LABELS = {
     "path": "file",
@@ -87,7 +86,7 @@ def run(args) -> int:
                         ";".join(f"{a}={b}" for a, b in v.items()) if isinstance(v, dict) else v)
                     for k, v in info.items()}
         columns = [Column(k, area=k in AREA_FIELDS) for k in LABELS]
-        metadata = {"tool": "areamc", "version": __version__, "command": " ".join(args.argv)}
+        metadata = run_metadata(args)
         text = render([flat], columns, fmt=fmt, units=args.units, metadata=metadata)
     if args.output:
         write_text(text, args.output)

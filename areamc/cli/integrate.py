@@ -2,15 +2,13 @@
 
 from __future__ import annotations
 
-from .. import __version__
-from ..errors import OptionError
-from ..estimate import StopRule
 from ..exact import FLAG_Z
 from ..integrate import integrate_density
 from ..load import read_layer
 from ..output import Column
 from ..project import project_layers
 from .common import (
+    run_metadata,
     add_layer_options,
     add_output_options,
     add_plane_options,
@@ -18,8 +16,9 @@ from .common import (
     check_outputs,
     emit,
     output_format,
+    stop_rule,
 )
-from .density_options import add_density_options, build_density, read_density
+from .density_options import add_density_options, build_density, density_metadata, read_density
 
 COLUMNS = (
     Column("id"),
@@ -49,26 +48,8 @@ def add_parser(sub) -> None:
     p.set_defaults(run=run)
 
 
-def _stop(args) -> StopRule:
-    """``--tolerance``: a percentage of the total, or an absolute count (e.g. persons)."""
-    if args.tolerance is None:
-        return StopRule(points=args.points or 100_000, max_points=args.max_points)
-    if args.points is not None:
-        raise OptionError("--points and --tolerance exclude each other; give one")
-    text = args.tolerance.strip()
-    try:
-        value = float(text[:-1]) if text.endswith("%") else float(text)
-    except ValueError:
-        raise OptionError(f"--tolerance: expected a count or a percentage such as 0.5%, got {args.tolerance!r}") from None
-    if not value > 0 or value == float("inf"):
-        raise OptionError(f"--tolerance: must be positive, got {args.tolerance!r}")
-    if text.endswith("%"):
-        return StopRule(points=None, relative=value / 100, max_points=args.max_points)
-    return StopRule(points=None, absolute=value, max_points=args.max_points)
-
-
 def run(args) -> int:
-    stop = _stop(args)
+    stop = stop_rule(args, scale=1.0)  # an absolute tolerance is a count (e.g. persons)
     check_outputs(args, [args.regions, args.density])
     regions = read_layer(args.regions, layer=args.layer, id_field=args.id_field, input_crs=args.input_crs)
     source_input = read_density(args)
@@ -80,12 +61,8 @@ def run(args) -> int:
                                chunk=args.chunk, importance=not args.no_importance, exact=not args.no_exact)
     rows = [r.to_dict() for r in report.rows]
     metadata = {
-        "tool": "areamc",
-        "version": __version__,
-        "command": " ".join(args.argv),
-        "input": {"path": regions.path, "layer": regions.layer, "crs": regions.crs.to_string(), "features": len(regions)},
-        "density": {"source": args.density, "kind": source_input.kind, "count_field": args.count_field,
-                    "raster_values": args.raster_values if source_input.kind == "raster" else None},
+        **run_metadata(args, input=regions),
+        "density": density_metadata(args, source_input),
         **report.metadata(),
         "note": "totals are in the density's count unit; mean_density is per unit of --units",
     }

@@ -4,13 +4,13 @@ from __future__ import annotations
 
 import numpy as np
 
-from .. import __version__
 from ..exact import FLAG_Z
 from ..errors import OptionError
 from ..output import Column, convert_rows, table
 from ..overlap import estimate_overlaps
 from ..project import project_layers, transform_geometry, transformer
 from .common import (
+    run_metadata,
     add_layer_options,
     add_output_options,
     add_plane_options,
@@ -97,10 +97,7 @@ def run(args) -> int:
     rows = [r.to_dict() for r in report.rows]
     profile = [m.to_dict() for m in report.multiplicity]
     metadata = {
-        "tool": "areamc",
-        "version": __version__,
-        "command": " ".join(args.argv),
-        "inputs": [{"path": l.path, "layer": l.layer, "crs": l.crs.to_string(), "features": len(l)} for l in layers],
+        **run_metadata(args, inputs=layers),
         **report.metadata(),
         "multiplicity": _convert(profile, args.units),
     }
