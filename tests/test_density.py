@@ -135,15 +135,10 @@ def test_block__density_is_count_over_block_area(worked):
     np.testing.assert_allclose(source.density(x, y), expected, rtol=1e-12, atol=0)
 
 
-@pytest.mark.xfail(
-    reason="areamc bug: BlockDensity.density gives a point outside the blocks' bounding box the rate of "
-    "the nearest edge block (ZoneIndex._cell clamps it into an edge cell, whose fully covering blocks "
-    "are counted without a containment test); expected density 0 there",
-    strict=True,
-)
 def test_block__density_outside_the_blocks_bounding_box_is_zero(worked):
     _, source, _ = worked
-    # (6.5 km, 1 km) lies east of B, (2 km, -1 km) south of A: no block holds them (constructed here)
+    # (6.5 km, 1 km) lies east of B, (2 km, -1 km) south of A: no block holds them (constructed here);
+    # outside the blocks' bounding box, so the block index must not clamp them into an edge cell
     got = source.density(np.array([6.5 * KM, 2 * KM]), np.array([1 * KM, -1 * KM]))
     np.testing.assert_array_equal(got, [0.0, 0.0])
 

@@ -123,14 +123,9 @@ def test_blocks__worked_example_in_fractions():
     assert row.stderr == pytest.approx(17 * math.sqrt((9 / 34) * (25 / 34) / 200_000), rel=0.02)
 
 
-@pytest.mark.xfail(
-    reason="areamc bug: BlockDensity.density gives points outside the blocks' bounding box the rate "
-    "of an edge block, so a uniform (importance=False) total over a region reaching beyond the blocks "
-    "is too large (estimate 29.2 +- 0.08 for exact 17, z = 155)",
-    strict=True,
-)
 def test_blocks__uniform_total_over_a_region_larger_than_the_blocks():
-    # every block inside the region: the total is 8 + 3 + 6 = 17 (constructed here)
+    # every block inside the region: the total is 8 + 3 + 6 = 17 (constructed here); plain sampling
+    # throws points outside the blocks' bounding box, where the density is 0
     blocks = [box(0, 0, 4 * KM, 2 * KM), box(4 * KM, 0, 6 * KM, 3 * KM), Polygon([(0, 2 * KM), (4 * KM, 2 * KM), (0, 5 * KM)])]
     region, pblocks = on_plane([box(-KM, -KM, 7 * KM, 6 * KM)], blocks)
     report = integrate_density(region, BlockDensity(pblocks, [8, 3, 6]), stop=StopRule(points=100_000),

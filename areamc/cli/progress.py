@@ -21,7 +21,6 @@ class ProgressBar:
         self._bar = None
         self._factor = area_factor(units)
         self._units = units
-        self._offset = 0
         self._last_id = None
         self._last_n = 0
         if quiet or not sys.stderr.isatty():
@@ -34,7 +33,6 @@ class ProgressBar:
         if self._bar is None:
             return
         if fid != self._last_id:
-            self._offset += self._last_n
             self._last_id, self._last_n = fid, 0
         self._bar.update(points - self._last_n)
         self._last_n = points
