@@ -20,7 +20,7 @@ import numpy as np
 import shapely
 
 from .classify import ZoneIndex
-from .density import BlockDensity, DensitySource
+from .density import DensitySource
 from .estimate import DEFAULT_CHUNK, StopRule, check_confidence, hit_or_miss, wilson_interval, z_for
 from .exact import FLAG_Z, at_least, covered_area, deviation, multiplicity_areas, planar_area
 from .errors import OptionError
@@ -317,8 +317,9 @@ def _population(region, near, classify, density, root, r, stop, chunk, importanc
                        importance=importance, done=done if (claim is not None or stop.adaptive) else None)
     truth = density.exact_total(region) if exact else None
     covered_truth = None
-    if exact and isinstance(density, BlockDensity) and truth:
-        covered_truth = density.exact_total(shapely.intersection(region, shapely.union_all(near))) / truth if len(near) else 0.0
+    if truth:  # sources with an exact total (blocks, rasters) give the exact covered share at k = 1
+        covered = shapely.intersection(region, shapely.union_all(near)) if len(near) else None
+        covered_truth = density.exact_total(covered) / truth if covered is not None else 0.0
 
     def fields(column: int, k: int) -> dict:
         if run is None:

@@ -158,7 +158,7 @@ def integrate_density(
         rows.append(
             IntegrateRow(
                 id=rid, estimate=est.estimate, stderr=est.stderr, ci_low=est.ci_low, ci_high=est.ci_high,
-                mean_density=est.estimate / areas[r] if areas[r] > 0 else math.nan, region_area=float(areas[r]),
+                mean_density=float(est.estimate / areas[r]) if areas[r] > 0 else math.nan, region_area=float(areas[r]),
                 points=run.points, method=run.method, exact=truth, z=z,
                 flagged=bool(z is not None and abs(z) > FLAG_Z),
             )
