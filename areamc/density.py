@@ -59,14 +59,15 @@ class Proposal:
     ----------
     total : float
         Sum of the counts of those units (persons): the integral of the
-        density over their union.
+        density over their union.  0 when no unit near the region has a
+        positive count (then `draw` is None and the density there is 0).
     draw : callable
         ``draw(u)`` maps an ``(n, 4)`` array of uniforms in [0, 1) to points
         ``(x, y)`` in plane metres, distributed with density ``d(x) / total``.
     """
 
     total: float
-    draw: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]
+    draw: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None
 
 
 class DensitySource:
@@ -86,7 +87,7 @@ class DensitySource:
         return None
 
     def proposal(self, region) -> Proposal | None:
-        """An importance sampler for `region`, or None when the source has none."""
+        """An importance sampler for `region`, or None when the source cannot offer one there."""
         return None
 
     def finish(self) -> None:
@@ -176,7 +177,7 @@ class BlockDensity(DensitySource):
     def proposal(self, region) -> Proposal | None:
         near = [i for i in self._near(region) if self.counts[i] > 0]
         if not near:
-            return None
+            return Proposal(0.0, None)
         tris, weights = [], []
         for i in near:
             t = self._tri.get(i)
@@ -404,13 +405,15 @@ class RasterDensity(DensitySource):
         return self._equal_area
 
     def proposal(self, region) -> Proposal | None:
-        if self._window is None or not self._importance_ok(region):
+        if self._window is None:
+            return Proposal(0.0, None)
+        if not self._importance_ok(region):
             return None
         transform, counts, _, _ = self._window
         flat = counts.ravel()
         cells = np.nonzero(flat > 0)[0]
         if not len(cells):
-            return None
+            return Proposal(0.0, None)
         cdf = np.cumsum(flat[cells])
         cols = counts.shape[1]
         e = self._e

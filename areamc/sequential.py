@@ -19,7 +19,6 @@ not (its error rate grows with the number of looks).
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import numpy as np
 

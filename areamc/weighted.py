@@ -25,7 +25,7 @@ from typing import Callable
 import numpy as np
 
 from .density import DensitySource
-from .estimate import AreaEstimate, StopRule, TotalEstimate, accumulate, mean_interval, wilson_interval, z_for
+from .estimate import AreaEstimate, TotalEstimate, accumulate, mean_interval, wilson_interval, z_for
 from .sampling import Box, UniformSampler, child_seed, scale_to_box
 
 __all__ = ["WeightedRun", "weighted_run", "IMPORTANCE", "UNIFORM"]
@@ -111,6 +111,8 @@ def weighted_run(
     WeightedRun, or None when the density is zero on every unit near the region.
     """
     proposal = source.proposal(region) if importance else None
+    if proposal is not None and proposal.total <= 0:
+        return None  # the source has no positive count near the region: density 0 here
     if proposal is not None:
         first = UniformSampler(child_seed(root, *key, 0))
         second = UniformSampler(child_seed(root, *key, 1))
@@ -121,8 +123,6 @@ def weighted_run(
         scale, method = proposal.total, IMPORTANCE
         evaluate = classify
     else:
-        if importance and type(source).proposal is not DensitySource.proposal:
-            return None  # a source that can propose but found no positive counts: density 0 here
         box = Box.of(region.bounds)
         sampler = UniformSampler(child_seed(root, *key, 2))
 

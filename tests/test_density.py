@@ -222,8 +222,10 @@ def test_block__density_at_random_points(grid):
 def test_block__proposal_leaves_out_empty_and_far_blocks(grid):
     regions, blocks, counts = grid
     source = BlockDensity(blocks, counts)
-    assert source.proposal(regions["outside"]) is None
-    assert source.proposal(regions["touching"]) is None
+    # no block shares area with these regions: an empty proposal (total 0, nothing to draw)
+    for name in ("outside", "touching"):
+        empty_proposal = source.proposal(regions[name])
+        assert empty_proposal.total == 0.0 and empty_proposal.draw is None
     region = regions["multi"]
     proposal = source.proposal(region)
     # total = counts of the blocks sharing area with the region (shapely, interiors meet)
@@ -238,7 +240,8 @@ def test_block__proposal_leaves_out_empty_and_far_blocks(grid):
 def test_block__all_zero_counts_give_no_proposal(grid):
     regions, blocks, counts = grid
     source = BlockDensity(blocks, np.zeros_like(counts))
-    assert source.proposal(regions["wobbly"]) is None
+    proposal = source.proposal(regions["wobbly"])
+    assert proposal.total == 0.0 and proposal.draw is None  # density 0 here, known without sampling
     assert source.exact_total(regions["wobbly"]) == 0.0
 
 
@@ -473,7 +476,8 @@ def test_raster__no_overlap(tmp_path):
     assert not source.overlaps(far.planar[0])
     source.prepare(far.planar[0])
     assert source.exact_total(far.planar[0]) == 0.0
-    assert source.proposal(far.planar[0]) is None
+    proposal = source.proposal(far.planar[0])
+    assert proposal.total == 0.0 and proposal.draw is None
     assert source.density(np.array([305_000.0]), np.array([305_000.0]))[0] == 0.0
 
 

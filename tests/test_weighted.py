@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 import shapely
 from scipy import stats
-from shapely.geometry import Point, Polygon, box
+from shapely.geometry import Point, Polygon
 
 from areamc.coverage import region_classifier
 from areamc.density import BlockDensity, ExpressionDensity
@@ -162,3 +162,34 @@ def test_zero_density_and_sources_without_proposal(scene):
     assert low <= area_share <= high  # a constant density weights by area alone
     total = r.total(CONF)
     assert total.ci_low <= 1e-4 * scene["region"].area <= total.ci_high
+
+
+def test_weighted_run__raster_without_importance_sampler_still_counts_its_density(tmp_path):
+    # Regression: a raster in a CRS that is not equal-area has no importance sampler; the run must
+    # fall back to uniform sampling, not report a zero density.  Reference: constant density x
+    # shapely area (calculus: the integral of a constant).
+    import rasterio
+    from rasterio.transform import from_origin
+
+    from areamc.density import RasterDensity
+    from areamc.load import layer_from_geometries
+    from areamc.project import project_layers
+    from areamc.sampling import make_seed
+    from areamc.weighted import UNIFORM, weighted_run
+
+    path = tmp_path / "utm.tif"
+    data = np.full((20, 20), 1e-4, dtype="float32")  # persons per m², UTM 32N cells of 500 m
+    with rasterio.open(path, "w", driver="GTiff", height=20, width=20, count=1, dtype="float32",
+                       crs="EPSG:32632", transform=from_origin(600_000, 5_240_000, 500, 500)) as dst:
+        dst.write(data, 1)
+    region_utm = shapely.box(602_000, 5_232_000, 606_000, 5_236_000)
+    (region,) = project_layers([layer_from_geometries([region_utm], "EPSG:32632")])
+    source = RasterDensity(str(path), region.plane, values="per-m2")
+    geom = region.planar[0]
+    source.prepare(geom)
+    assert source.proposal(geom) is None  # UTM is not equal-area: no importance sampler
+    run = weighted_run(geom, lambda x, y: shapely.contains_xy(geom, x, y)[:, None], source, make_seed(3), (0,),
+                       budget=50_000, chunk=10_000)
+    assert run is not None and run.method == UNIFORM
+    total = run.total(0.95)
+    assert abs(total.estimate - 1e-4 * geom.area) <= 4 * total.stderr + 1e-9 * geom.area

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import argparse
 
 from ..area import estimate_areas
 from ..estimate import AreaEstimate
@@ -18,7 +17,6 @@ from .common import (
     add_sampling_options,
     check_outputs,
     emit,
-    output_format,
     positive_int,
     stop_rule,
 )

@@ -21,7 +21,6 @@ from .common import (
     add_zone_options,
     check_outputs,
     emit,
-    output_format,
     positive_float,
     stop_rule,
     zone_layer,

@@ -15,7 +15,6 @@ from .common import (
     add_sampling_options,
     check_outputs,
     emit,
-    output_format,
     stop_rule,
 )
 from .density_options import add_density_options, build_density, density_metadata, read_density
