@@ -9,6 +9,7 @@
 from __future__ import annotations
 
 import math
+import time
 
 import numpy as np
 import shapely
@@ -80,8 +81,6 @@ def multiplicity_areas(zones, *, clip=None, deadline: float | None = None) -> di
     call in progress is not interrupted, so the budget is honoured to within
     one step.
     """
-    import time
-
     zones = np.asarray(zones, dtype=object)
     if len(zones) == 0:
         return {}

@@ -20,7 +20,7 @@ from .estimate import DEFAULT_CHUNK, StopRule, check_confidence
 from .exact import FLAG_Z, deviation, planar_area
 from .project import EqualAreaPlane, ProjectedLayer
 from .sampling import make_seed
-from .weighted import IMPORTANCE, weighted_run
+from .weighted import IMPORTANCE, WeightedRun, weighted_run
 
 __all__ = ["IntegrateRow", "IntegrateReport", "integrate_density", "total_target"]
 
@@ -89,8 +89,6 @@ def total_target(stop: StopRule, confidence: float):
     def done(method, scale, sums, sumsq, points) -> bool:
         if points < 2 or sums[0] <= 0:
             return False
-        from .weighted import WeightedRun
-
         est = WeightedRun(method, points, scale, sums, sumsq, False).total(confidence)
         return stop.met(est.half_width, est.estimate)
 

@@ -14,6 +14,7 @@ areal scale factors are read alongside.  See docs/methods.md.
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -21,7 +22,7 @@ import pyproj
 import shapely
 
 from .errors import CRSError, NotEqualAreaError
-from .load import Layer, parse_crs
+from .load import AreamcWarning, Layer, parse_crs
 
 __all__ = [
     "WGS84",
@@ -384,10 +385,6 @@ def _warn_wide(lonlat: np.ndarray, layer: Layer) -> None:
     bounds = shapely.bounds(lonlat)
     wide = np.flatnonzero(bounds[:, 2] - bounds[:, 0] > 180)
     if wide.size:
-        import warnings
-
-        from .load import AreamcWarning
-
         names = ", ".join(layer.ids[i] for i in wide[:5])
         warnings.warn(
             f"{layer.source}: {wide.size} feature(s) span more than 180 degrees of longitude ({names}); "

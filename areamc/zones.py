@@ -9,12 +9,13 @@ reach is a true distance on the ellipsoid, not a distance in some plane.
 from __future__ import annotations
 
 import math
+import warnings
 
 import numpy as np
 import shapely
 
 from .errors import LayerError, OptionError
-from .load import Layer
+from .load import AreamcWarning, Layer, read_layer
 from .project import LONLAT, WGS84, transformer, transform_geometry
 
 __all__ = ["geodesic_circle", "zones_from_points", "read_zones", "DEFAULT_VERTICES"]
@@ -132,10 +133,6 @@ def read_zones(
     Points need `radius_m` (metres, for all) or `radius_field` (metres, per
     feature); on a polygon layer a radius is ignored with a warning.
     """
-    import warnings
-
-    from .load import AreamcWarning, read_layer
-
     zones = read_layer(path, layer=layer, id_field=id_field, input_crs=input_crs, kind="any")
     if zones.kind == "point":
         return zones_from_points(zones, radius_m=radius_m, radius_field=radius_field, vertices=vertices)

@@ -6,6 +6,7 @@ import argparse
 import math
 import sys
 
+from .. import __version__
 from ..errors import OptionError
 from ..estimate import DEFAULT_CHUNK, DEFAULT_MAX_POINTS, DEFAULT_POINTS, StopRule
 from ..output import FORMATS, check_output_path, convert_rows, render, write_text
@@ -171,8 +172,6 @@ def run_metadata(args, **inputs) -> dict:
     Each keyword is an output key (``input=layer`` or ``inputs=[layers]``); a
     layer is described by path, layer name, CRS and number of features kept.
     """
-    from .. import __version__
-
     def describe(layer) -> dict:
         return {"path": layer.path, "layer": layer.layer, "crs": layer.crs.to_string(), "features": len(layer)}
 

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import sys
 
+import shapely
+
 from ..exact import geodesic_area, planar_area
 from ..load import list_layers, read_layer
 from ..errors import OptionError
@@ -96,6 +98,4 @@ def run(args) -> int:
 
 
 def _bounds(geoms):
-    import shapely
-
     return shapely.total_bounds(list(geoms))
