@@ -1,6 +1,6 @@
 """Tests of areamc.project: equal-area planes, densification and reprojection.
 
-References (see /work/shared/REFERENCES.md):
+References (collected in the shared REFERENCES.md):
 * Karney (2013), "Algorithms for geodesics", J. Geodesy 87:43-55, through pyproj.Geod.
 * Snyder (1987), Map Projections: A Working Manual, USGS Prof. Paper 1395, eq. 3-12 (the
   authalic q function) and Appendix A (worked LAEA example).
