@@ -172,7 +172,6 @@ def test_overlap__one_layer_multiplicity_profile(one_layer_doc, service_zones):
 
 
 def test_overlap__two_layers_cross_pairs(capsys, service_zones):
-    # both files first: argparse does not take the optional second positional after options
     doc = run_json(capsys, ["overlap", str(GPKG), str(GPKG), "--layer", "service_zones", "--id-field", "zone_id",
                             "--other-layer", "districts", "--other-id-field", "district_id", "-n", "20000",
                             "--seed", "4", "--confidence", "0.999"])
@@ -368,3 +367,12 @@ def test_overlap__installed_script_end_to_end(tmp_path, service_zones):
     planar = to_plane(geoms, crs, doc)
     area = dict(zip(ids, shapely.area(planar)))
     check_rows(doc["results"], exact_pair_areas(ids, planar), area, area)
+
+
+def test_overlap__second_file_may_follow_options(capsys):
+    # the same cross pairs whether OTHER comes before or after the options (same seed, same rows)
+    first = run_json(capsys, ["overlap", str(GPKG), str(GPKG), "--layer", "service_zones", "--other-layer",
+                              "districts", "-n", "2000", "--seed", "4"])
+    later = run_json(capsys, ["overlap", str(GPKG), "--layer", "service_zones", str(GPKG), "--other-layer",
+                              "districts", "-n", "2000", "--seed", "4"])
+    assert first["results"] and later["results"] == first["results"]

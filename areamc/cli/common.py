@@ -33,7 +33,23 @@ __all__ = [
 
 
 class Parser(argparse.ArgumentParser):
-    """ArgumentParser whose usage errors are one line and exit status 2."""
+    """ArgumentParser whose usage errors are one line and exit status 2.
+
+    Sub-command parsers take positionals and options in any order
+    (``areamc overlap A.gpkg --layer zones B.gpkg``), by argparse's
+    intermixed parsing.
+    """
+
+    _intermixing = False
+
+    def parse_known_args(self, args=None, namespace=None):
+        if self._intermixing or self._subparsers is not None:
+            return super().parse_known_args(args, namespace)
+        self._intermixing = True
+        try:
+            return super().parse_known_intermixed_args(args, namespace)
+        finally:
+            self._intermixing = False
 
     def error(self, message: str):  # noqa: D401 - argparse API
         command = self.prog.removeprefix("areamc").strip()
