@@ -21,7 +21,7 @@ import shapely
 
 from .classify import ZoneIndex
 from .density import DensitySource
-from .estimate import DEFAULT_CHUNK, StopRule, check_confidence, hit_or_miss, wilson_interval, z_for
+from .estimate import DEFAULT_CHUNK, StopRule, check_confidence, check_scale, hit_or_miss, wilson_interval
 from .exact import FLAG_Z, at_least, covered_area, deviation, multiplicity_areas, planar_area
 from .errors import OptionError
 from .project import EqualAreaPlane, ProjectedLayer
@@ -286,7 +286,7 @@ def _row(rid, k, hits, n, region_area, exact_share, claim, confidence) -> Covera
         method = "wilson"
     else:
         low, high, method = math.nan, math.nan, "wilson"
-    scale = max(stderr, (high - low) / 2 / z_for(confidence)) if n else math.nan
+    scale = check_scale(stderr, low, high, confidence) if n else math.nan
     z = deviation(share, exact_share, scale) if exact_share is not None and n else None
     return CoverageRow(
         id=rid, at_least=k, share=share, stderr=stderr, ci_low=low, ci_high=high, points=n, hits=hits,

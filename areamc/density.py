@@ -34,7 +34,15 @@ from .classify import ZoneIndex
 from .errors import InputError, LayerError, OptionError
 from .expression import Expression, parse_expression
 from .load import AreamcWarning, Layer
-from .project import LONLAT, EqualAreaPlane, ProjectedLayer, measure_area_distortion, quadrangle_area, transformer
+from .project import (
+    LONLAT,
+    EqualAreaPlane,
+    ProjectedLayer,
+    authalic_q,
+    measure_area_distortion,
+    quadrangle_area,
+    transformer,
+)
 from .sampling import Box
 
 __all__ = [
@@ -201,11 +209,6 @@ def _tri_area(t: np.ndarray) -> np.ndarray:
     return 0.5 * np.abs((b[:, 0] - a[:, 0]) * (c[:, 1] - a[:, 1]) - (c[:, 0] - a[:, 0]) * (b[:, 1] - a[:, 1]))
 
 
-def _q(phi: np.ndarray, e: float) -> np.ndarray:
-    s = np.sin(phi)
-    return (1 - e * e) * (s / (1 - (e * s) ** 2) + np.arctanh(e * s) / e)
-
-
 def _phi_from_q(q: np.ndarray, e: float) -> np.ndarray:
     """Invert the authalic q function (Snyder 1987, eq. 3-16, iterated to convergence)."""
     e2 = e * e
@@ -282,6 +285,7 @@ class RasterDensity(DensitySource):
         self._equal_area: bool | None = None
         self._nodata: list[np.ndarray] = []
         self._window = None
+        self._cells = None
 
     # -- windows ------------------------------------------------------------
     def _window_for(self, region):
@@ -305,6 +309,7 @@ class RasterDensity(DensitySource):
     def prepare(self, region) -> None:
         win = self._window_for(region)
         self._window = None
+        self._cells = None  # cell outlines in the plane for this window, built on first need
         if win is None:
             return
         data = self._ds.read(self.band, window=win, masked=True).astype(float)
@@ -361,7 +366,8 @@ class RasterDensity(DensitySource):
             xs, ys = self._corners(transform, rows, cols)
             area = quadrangle_area(xs[:-1, :-1], ys[:-1, :-1], xs[1:, 1:], ys[1:, 1:], a=self._a, rf=self._rf)
             return np.asarray(area, float)
-        return shapely.area(self._cell_polygons(transform, rows, cols)).reshape(rows, cols)
+        self._cells = self._cell_polygons(transform, rows, cols)
+        return shapely.area(self._cells).reshape(rows, cols)
 
     # -- queries ------------------------------------------------------------
     def density(self, x, y):
@@ -382,8 +388,9 @@ class RasterDensity(DensitySource):
         if self._window is None:
             return 0.0
         transform, counts, _, _ = self._window
-        rows, cols = counts.shape
-        cells = self._cell_polygons(transform, rows, cols)
+        if self._cells is None:
+            self._cells = self._cell_polygons(transform, *counts.shape)
+        cells = self._cells
         flat = counts.ravel()
         keep = flat > 0
         cells, flat = cells[keep], flat[keep]
@@ -425,7 +432,7 @@ class RasterDensity(DensitySource):
             x1, y1 = _apply(transform, col + 1, row + 1)
             gx = np.asarray(x0) + u[:, 1] * (np.asarray(x1) - np.asarray(x0))
             if self._geographic and e > 0:
-                q0, q1 = _q(np.radians(y0), e), _q(np.radians(y1), e)
+                q0, q1 = authalic_q(np.radians(y0), e), authalic_q(np.radians(y1), e)
                 gy = np.degrees(_phi_from_q(q0 + u[:, 2] * (q1 - q0), e))
             elif self._geographic:
                 s0, s1 = np.sin(np.radians(y0)), np.sin(np.radians(y1))

@@ -34,6 +34,7 @@ __all__ = [
     "TotalEstimate",
     "area_target",
     "check_confidence",
+    "check_scale",
     "DEFAULT_POINTS",
     "DEFAULT_MAX_POINTS",
     "DEFAULT_CHUNK",
@@ -42,6 +43,13 @@ __all__ = [
 DEFAULT_POINTS = 100_000
 DEFAULT_MAX_POINTS = 20_000_000
 DEFAULT_CHUNK = 1 << 16
+
+
+def check_scale(stderr: float, low: float, high: float, confidence: float) -> float:
+    """Scale for deviations from an exact value: the standard error, floored at
+    the interval's half-width over z, so that all-hit or no-hit runs (standard
+    error 0) are not flagged while the exact value lies in their interval."""
+    return max(stderr, (high - low) / 2 / z_for(confidence))
 
 
 def check_confidence(confidence: float) -> float:
@@ -197,10 +205,8 @@ class AreaEstimate:
 
     @property
     def check_scale(self) -> float:
-        """Scale for deviations from an exact value: the standard error, floored at
-        the Wilson half-width over z, so that all-hit or no-hit runs (standard
-        error 0) are not flagged while the exact value lies in their interval."""
-        return max(self.stderr, self.half_width / z_for(self.confidence))
+        """Scale for deviations from an exact value (see :func:`check_scale`)."""
+        return check_scale(self.stderr, self.ci_low, self.ci_high, self.confidence)
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -414,6 +420,11 @@ class TotalEstimate:
     @property
     def half_width(self) -> float:
         return (self.ci_high - self.ci_low) / 2
+
+    @property
+    def check_scale(self) -> float:
+        """Scale for deviations from an exact value; for a normal interval, the standard error."""
+        return check_scale(self.stderr, self.ci_low, self.ci_high, self.confidence)
 
     def to_dict(self) -> dict:
         return asdict(self)

@@ -20,7 +20,7 @@ from .estimate import DEFAULT_CHUNK, StopRule, check_confidence
 from .exact import FLAG_Z, deviation, planar_area
 from .project import EqualAreaPlane, ProjectedLayer
 from .sampling import make_seed
-from .weighted import IMPORTANCE, WeightedRun, weighted_run
+from .weighted import WeightedRun, weighted_run
 
 __all__ = ["IntegrateRow", "IntegrateReport", "integrate_density", "total_target"]
 
@@ -151,8 +151,7 @@ def integrate_density(
                                      deviation(0.0, truth, 0.0) if truth is not None else None, False))
             continue
         est = run.total(confidence)
-        scale = est.check_scale if run.method == IMPORTANCE else est.stderr
-        z = deviation(est.estimate, truth, scale) if truth is not None else None
+        z = deviation(est.estimate, truth, est.check_scale) if truth is not None else None
         rows.append(
             IntegrateRow(
                 id=rid, estimate=est.estimate, stderr=est.stderr, ci_low=est.ci_low, ci_high=est.ci_high,

@@ -39,6 +39,7 @@ __all__ = [
     "project_layer",
     "project_layers",
     "quadrangle_area",
+    "authalic_q",
     "DEFAULT_DENSIFY_M",
     "MAX_AREA_DISTORTION",
 ]
@@ -193,8 +194,8 @@ def choose_plane(bounds: tuple[float, float, float, float]) -> pyproj.CRS:
     return pyproj.CRS.from_user_input(_GLOBAL_PLANE)
 
 
-def _q(phi: np.ndarray, e: float) -> np.ndarray:
-    """Snyder (1987) eq. 3-12, with the log term written as atanh for accuracy."""
+def authalic_q(phi: np.ndarray, e: float) -> np.ndarray:
+    """Snyder (1987) eq. 3-12, q(φ) for latitude φ in radians and eccentricity e; the log term as atanh."""
     s = np.sin(phi)
     return (1 - e * e) * (s / (1 - (e * s) ** 2) + np.arctanh(e * s) / e)
 
@@ -209,7 +210,7 @@ def quadrangle_area(lon1, lat1, lon2, lat2, *, a: float = 6378137.0, rf: float =
     f = 1 / rf
     e = math.sqrt(f * (2 - f))
     dlam = np.radians(np.asarray(lon2, float) - np.asarray(lon1, float))
-    dq = _q(np.radians(np.asarray(lat2, float)), e) - _q(np.radians(np.asarray(lat1, float)), e)
+    dq = authalic_q(np.radians(np.asarray(lat2, float)), e) - authalic_q(np.radians(np.asarray(lat1, float)), e)
     return np.abs(a * a / 2 * dlam * dq)
 
 

@@ -67,15 +67,22 @@ def positive_int(text: str) -> int:
     return int(value)
 
 
-def non_negative_int(text: str) -> int:
-    """argparse type: a whole number >= 0."""
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a non-negative whole number, got {text!r}") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"expected a non-negative whole number, got {text!r}")
-    return value
+def whole_number(minimum: int):
+    """argparse type factory: a whole number >= `minimum`."""
+
+    def parse(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            value = None
+        if value is None or value < minimum:
+            raise argparse.ArgumentTypeError(f"expected a whole number of at least {minimum}, got {text!r}")
+        return value
+
+    return parse
+
+
+non_negative_int = whole_number(0)
 
 
 def positive_float(text: str) -> float:

@@ -23,6 +23,7 @@ from .common import (
     emit,
     positive_float,
     stop_rule,
+    whole_number,
     zone_layer,
 )
 
@@ -56,16 +57,6 @@ ALL_FIELDS = COLUMNS + (
 )  # with the table's columns: every field that holds an area, for unit conversion
 
 
-def _k(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number of at least 1, got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"k must be at least 1, got {text!r}")
-    return value
-
-
 def _claim(text: str) -> float:
     try:
         return check_claim(float(text))
@@ -82,7 +73,7 @@ def add_parser(sub) -> None:
     add_zone_options(p)
     add_plane_options(p)
     add_sampling_options(p)
-    p.add_argument("--at-least", type=_k, action="append", metavar="K",
+    p.add_argument("--at-least", type=whole_number(1), action="append", metavar="K",
                    help="report the share covered by at least K zones; repeat for several (default 1)")
     p.add_argument("--claim", type=_claim, metavar="SHARE",
                    help="check the claim that each share is at least SHARE, in (0, 1]")
