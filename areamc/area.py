@@ -1,9 +1,10 @@
 """The area job: per-feature hit-or-miss estimates with exact checks.
 
 Data flow: :class:`~areamc.project.ProjectedLayer` -> one sampler per feature
-(seed child keyed by feature index) -> :func:`~areamc.estimate.hit_or_miss`
-inside the feature's bounding box -> exact planar and geodesic areas
-(:mod:`areamc.exact`) -> frozen :class:`AreaRow` records.
+(from :func:`~areamc.samplers.make_sampler`, stream keyed by job and feature
+index) -> :func:`~areamc.engine.hit_or_miss` inside the feature's bounding
+box -> exact planar and geodesic areas (:mod:`areamc.exact`) -> frozen
+:class:`AreaRow` records.
 """
 
 from __future__ import annotations
@@ -13,13 +14,19 @@ from typing import Callable
 
 import numpy as np
 
+from .checks import flagged
 from .classify import inside
-from .estimate import DEFAULT_CHUNK, AreaEstimate, StopRule, area_target, check_confidence, hit_or_miss
-from .exact import FLAG_Z, deviation, geodesic_area, planar_area
-from .project import EqualAreaPlane, ProjectedLayer
-from .sampling import Box, UniformSampler, child_seed, make_seed
+from .engine import DEFAULT_CHUNK, HitOrMissRun, hit_or_miss
+from .estimate import AreaEstimate, area_precision
+from .exact import geodesic_area, planar_area
+from .intervals import check_confidence
+from .project import ProjectedLayer
+from .runinfo import RunInfo
+from .samplers import Box, SamplerFactory, make_sampler, sampler_name
+from .seeds import child_seed, job_root, make_seed
+from .stopping import StopRule, Stopper
 
-__all__ = ["AreaRow", "AreaReport", "estimate_areas"]
+__all__ = ["AreaRow", "AreaReport", "TraceRow", "estimate_areas"]
 
 
 @dataclass(frozen=True)
@@ -32,6 +39,7 @@ class AreaRow:
     estimate, stderr, ci_low, ci_high : float
         Estimate, standard error and Wilson interval (m²).
     points, hits : int
+        Points behind the estimate and those inside the feature.
     box_area : float
         Area of the sampling box (the feature's bounding box in the plane), m².
     exact_planar : float or None
@@ -39,13 +47,14 @@ class AreaRow:
     geodesic : float or None
         Area on the WGS84 ellipsoid of the densified geometry (pyproj.Geod).
     z : float or None
-        ``(estimate - exact_planar) / stderr``, the standard error floored at
-        the Wilson half-width over z when all or no points hit
-        (:attr:`~areamc.estimate.AreaEstimate.check_scale`).
+        Deviation of the hit count from the exact planar area, as a normal
+        score of the binomial mid-p tail (:func:`~areamc.checks.binomial_deviation`).
     flagged : bool
         ``|z| > 4``: the estimate and the exact area disagree beyond chance.
-    stopped_early : bool
-        A precision target was met before the point cap.
+    stop_reason : str
+        Why sampling stopped ("budget", "target", "time").
+    pilot_points : int
+        Points of the pilot stage of a precision target, not in the estimate.
     """
 
     id: str
@@ -60,7 +69,24 @@ class AreaRow:
     geodesic: float | None
     z: float | None
     flagged: bool
-    stopped_early: bool
+    stop_reason: str
+    pilot_points: int
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class TraceRow:
+    """The running estimate of one feature after `points` points; areas in m²."""
+
+    id: str
+    points: int
+    hits: int
+    estimate: float
+    stderr: float
+    ci_low: float
+    ci_high: float
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -73,39 +99,29 @@ class AreaReport:
     Attributes
     ----------
     rows : tuple of AreaRow
-    plane : EqualAreaPlane
-    confidence : float
-    seed_entropy : int
-        Root seed entropy; ``--seed <seed_entropy>`` replays the run.
-    stop : StopRule
-    densify_m : float
-    traces : dict of str to tuple of TracePoint
-        Running counts per feature id (empty unless tracing was asked for).
+    run : RunInfo
+    traces : tuple of tuple of TracePoint
+        Running counts per row, in row order (empty unless tracing was asked for).
     """
 
     rows: tuple[AreaRow, ...]
-    plane: EqualAreaPlane
-    confidence: float
-    seed_entropy: int
-    stop: StopRule
-    densify_m: float
-    traces: dict
+    run: RunInfo
+    traces: tuple = ()
 
     def metadata(self) -> dict:
-        return {
-            "equal_area_crs": self.plane.to_dict(),
-            "confidence": self.confidence,
-            "seed": self.seed_entropy,
-            "densify_m": self.densify_m,
-            "stop": {
-                "points": self.stop.points,
-                "tolerance_abs_m2": self.stop.absolute,
-                "tolerance_rel": self.stop.relative,
-                "max_points": self.stop.max_points,
-            },
-        }
+        return self.run.to_dict()
+
+    def trace_rows(self) -> list[TraceRow]:
+        """The running estimates of every feature, in row order (areas in m²)."""
+        out = []
+        for row, trace in zip(self.rows, self.traces):
+            for point in trace:
+                est = AreaEstimate.from_counts(point.sums[0], point.points, row.box_area, self.run.confidence)
+                out.append(TraceRow(row.id, point.points, point.sums[0], est.estimate, est.stderr, est.ci_low, est.ci_high))
+        return out
 
 
+#: ``progress(feature_id, points_drawn, estimate)`` after each chunk.
 Progress = Callable[[str, int, AreaEstimate], None]
 
 
@@ -115,6 +131,7 @@ def estimate_areas(
     stop: StopRule | None = None,
     confidence: float = 0.95,
     seed: int | np.random.SeedSequence | None = None,
+    sampler: str | SamplerFactory = "uniform",
     chunk: int = DEFAULT_CHUNK,
     exact: bool = True,
     trace_every: int | None = None,
@@ -131,16 +148,18 @@ def estimate_areas(
     confidence : float
         Interval level in (0, 1).
     seed : int or SeedSequence, optional
-        Root seed; feature ``i`` samples from child ``(i,)``.  None draws fresh
-        entropy, recorded in the report.
+        Root seed; feature ``i`` samples from the stream keyed ``("area", i)``.
+        None draws fresh entropy, recorded in the report.
+    sampler : str or sampler class
+        A name registered in :mod:`areamc.samplers`, or a class built as ``cls(seed, box)``.
     chunk : int
-        Points per chunk (memory bound); does not change results.
+        Points per chunk (memory bound); does not change fixed-count results.
     exact : bool
         Compute the exact planar and geodesic checks.
     trace_every : int, optional
         Record running counts every this many points.
     progress : callable, optional
-        ``progress(feature_id, points_so_far, estimate)`` after each chunk.
+        ``progress(feature_id, points_drawn, estimate)`` after each chunk.
 
     Returns
     -------
@@ -150,49 +169,51 @@ def estimate_areas(
     stop = stop or StopRule()
     confidence = check_confidence(confidence)
     root = make_seed(seed)
+    streams = job_root(root, "area")
     exact_areas = planar_area(layer.planar) if exact else None
     rows: list[AreaRow] = []
-    traces: dict = {}
+    traces = []
     for i, (fid, geom) in enumerate(zip(layer.ids, layer.planar)):
         box = Box.of(geom.bounds)
         run = hit_or_miss(
-            box,
+            make_sampler(sampler, child_seed(streams, i), box),
             inside(geom),
-            UniformSampler(child_seed(root, i)),
-            budget=stop.budget,
-            done=area_target(stop, box.area, confidence),
+            Stopper(stop, precision=area_precision(box.area, confidence)),
             chunk=chunk,
             trace_every=trace_every,
             progress=None if progress is None else _report(progress, fid, box.area, confidence),
         )
-        est = run.estimate(0, confidence)
-        if trace_every:
-            traces[fid] = run.trace
+        traces.append(run.trace)
         planar = float(exact_areas[i]) if exact else None
         geodesic = geodesic_area(layer.lonlat[i]) if exact else None
-        z = deviation(est.estimate, planar, est.check_scale) if exact else None
-        rows.append(
-            AreaRow(
-                id=fid,
-                estimate=est.estimate,
-                stderr=est.stderr,
-                ci_low=est.ci_low,
-                ci_high=est.ci_high,
-                points=est.points,
-                hits=est.hits,
-                box_area=est.box_area,
-                exact_planar=planar,
-                geodesic=geodesic,
-                z=z,
-                flagged=bool(z is not None and abs(z) > FLAG_Z),
-                stopped_early=run.stopped_early,
-            )
-        )
-    return AreaReport(tuple(rows), layer.plane, confidence, int(root.entropy), stop, layer.densify_m, traces)
+        rows.append(_row(fid, run, confidence, planar, geodesic))
+    info = RunInfo("area", layer.plane, confidence, int(root.entropy), sampler_name(sampler), stop, layer.densify_m)
+    return AreaReport(tuple(rows), info, tuple(traces) if trace_every else ())
+
+
+def _row(fid: str, run: HitOrMissRun, confidence: float, planar: float | None, geodesic: float | None) -> AreaRow:
+    est = run.estimate(0, confidence)
+    z = est.deviation(planar) if planar is not None else None
+    return AreaRow(
+        id=fid,
+        estimate=est.estimate,
+        stderr=est.stderr,
+        ci_low=est.ci_low,
+        ci_high=est.ci_high,
+        points=est.points,
+        hits=est.hits,
+        box_area=est.box_area,
+        exact_planar=planar,
+        geodesic=geodesic,
+        z=z,
+        flagged=flagged(z),
+        stop_reason=run.reason,
+        pilot_points=run.pilot_points,
+    )
 
 
 def _report(progress: Progress, fid: str, box_area: float, confidence: float):
-    def call(points: int, hits) -> None:
-        progress(fid, points, AreaEstimate.from_counts(int(hits[0]), points, box_area, confidence))
+    def call(drawn: int, points: int, hits) -> None:
+        progress(fid, drawn, AreaEstimate.from_counts(int(hits[0]), points, box_area, confidence))
 
     return call

@@ -11,7 +11,9 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-__all__ = ["inside"]
+from .samplers import Box
+
+__all__ = ["inside", "GridIndex", "region_classifier"]
 
 
 def inside(geom) -> "callable":
@@ -27,8 +29,8 @@ def inside(geom) -> "callable":
     return test
 
 
-class ZoneIndex:
-    """Count, for each point, how many zones contain it, testing only zones that can reach it.
+class GridIndex:
+    """Count, for each point, how many polygons (zones, blocks) contain it, testing only those that can reach it.
 
     A ``g x g`` grid is laid over the sampling box.  For each cell the zones
     are sorted, once, into those that contain the whole cell (counted without
@@ -40,7 +42,7 @@ class ZoneIndex:
     Parameters
     ----------
     zones : array of shapely geometries
-        Zones in the equal-area plane (metres).
+        Polygons (zones, or density blocks) in the equal-area plane (metres).
     box : Box
         The box points will be drawn from (plane metres).
     cells : int, optional
@@ -171,3 +173,23 @@ def _grid_size(zones: np.ndarray, box) -> int:
         return 4
     side = _CROSSINGS_PER_CELL * width * height / (1.3 * perimeter)
     return int(np.clip(np.ceil(max(width, height) / side), 4, _MAX_CELLS))
+
+
+def region_classifier(region, zones, ks):
+    """``f(x, y)`` giving bools ``(n, 1 + len(ks))``: in `region`, and in it covered by ≥ k of `zones`.
+
+    Points in plane metres.  Multiplicity is counted only for points inside
+    the region, by a :class:`GridIndex` over `zones` laid on the region's
+    bounding box.
+    """
+    karr = np.asarray(ks)
+    index = GridIndex(zones, Box.of(region.bounds))
+    shapely.prepare(region)
+
+    def classify(x, y):
+        within = shapely.contains_xy(region, x, y)
+        counts = np.zeros(len(x), dtype=np.int64)
+        counts[within] = index.counts(x[within], y[within])
+        return np.column_stack([within, counts[:, None] >= karr[None, :]])
+
+    return classify

@@ -1,6 +1,6 @@
-"""Density sources: values per m² at points of the equal-area plane.
+"""Density sources and their frozen views of one region: values per m² at points of the equal-area plane.
 
-Three kinds share one interface (:class:`DensitySource`):
+Three kinds of source:
 
 * :class:`BlockDensity`: a polygon layer with a count per block (census-style),
   spread uniformly over each block: density = count / block area (areal
@@ -8,14 +8,23 @@ Three kinds share one interface (:class:`DensitySource`):
 * :class:`RasterDensity`: a GeoTIFF of counts per cell or of density per unit
   area, in any CRS; counts become densities with each cell's true area (the
   closed-form ellipsoidal quadrangle for geographic grids, Snyder 1987).  Read
-  window by window, never whole.
+  window by window, never whole.  It holds an open file: use it as a
+  context manager, or call :meth:`RasterDensity.close`.
 * :class:`ExpressionDensity`: a safe arithmetic expression in ``x``, ``y``
   (plane metres) or ``lon``, ``lat`` (degrees); see :mod:`areamc.expression`.
 
-Where a source allows it, :meth:`DensitySource.proposal` returns an importance
-sampler that draws points with probability proportional to the density (a
-block or cell by its count, then a uniform point inside it), and
-:meth:`DensitySource.exact_total` gives the exact total over a polygon.
+A source answers nothing by itself.  ``source.for_region(region)`` returns
+an immutable view built for that region alone (the model is
+``scipy.stats.norm(loc, scale)``: fixed at construction, every method
+answers for it), with
+
+* ``density(x, y)``: the density at plane points;
+* ``exact_total(clip=None)``: the exact integral over the region (or over
+  the region's part inside `clip`), from :mod:`areamc.exact`, or None;
+* ``proposal()``: an importance sampler over the units (blocks, cells) that
+  meet the region, or None where the source cannot offer one.
+
+Views of different regions can be used in any order; none changes another.
 """
 
 from __future__ import annotations
@@ -23,45 +32,51 @@ from __future__ import annotations
 import math
 import os
 import warnings
-from dataclasses import dataclass
-from typing import Callable
+from dataclasses import dataclass, field
+from functools import cached_property
+from typing import Callable, Protocol
 
 import numpy as np
 import pyproj
 import shapely
 
-from .classify import ZoneIndex
-from .errors import InputError, LayerError, OptionError
+from .classify import GridIndex
+from .errors import AreamcWarning, InputError, LayerError, OptionError
+from .exact import block_total, cell_total
 from .expression import Expression, parse_expression
-from .load import AreamcWarning, Layer
-from .project import (
-    LONLAT,
-    EqualAreaPlane,
-    ProjectedLayer,
-    authalic_q,
-    measure_area_distortion,
-    quadrangle_area,
-    transformer,
-)
-from .sampling import Box
+from .geodesy import authalic_q, eccentricity, latitude_from_q, quadrangle_area
+from .load import Layer, read_layer
+from .project import LONLAT, EqualAreaPlane, ProjectedLayer, measure_area_distortion, transformer
+from .samplers import Box
 
 __all__ = [
     "DensitySource",
+    "DensityView",
     "Proposal",
     "BlockDensity",
     "RasterDensity",
     "ExpressionDensity",
+    "DensitySpec",
     "block_counts",
+    "guess_density_kind",
+    "read_density",
+    "build_density",
+    "warn_nodata",
     "RASTER_VALUES",
+    "DENSITY_KINDS",
 ]
 
 #: What raster values mean: counts per cell, or a density per m², ha or km².
 RASTER_VALUES = {"count": None, "per-m2": 1.0, "per-ha": 1.0e4, "per-km2": 1.0e6}
+#: Kinds of density source.
+DENSITY_KINDS = ("blocks", "raster", "expression")
+_RASTER_EXT = (".tif", ".tiff", ".vrt", ".img", ".asc")
+_VECTOR_EXT = (".gpkg", ".shp", ".geojson")
 
 
 @dataclass(frozen=True)
 class Proposal:
-    """An importance sampler over the units (blocks, cells) that meet one region.
+    """An importance sampler over the units (blocks, cells) that meet one region; a sampling domain.
 
     Attributes
     ----------
@@ -70,43 +85,69 @@ class Proposal:
         density over their union.  0 when no unit near the region has a
         positive count (then `draw` is None and the density there is 0).
     draw : callable
-        ``draw(u)`` maps an ``(n, 4)`` array of uniforms in [0, 1) to points
+        ``draw(u)`` maps an ``(n, 3)`` array of uniforms in [0, 1) to points
         ``(x, y)`` in plane metres, distributed with density ``d(x) / total``.
     """
 
     total: float
     draw: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None
 
+    #: Uniforms per point: one picks the unit, two place the point in it.
+    dims = 3
 
-class DensitySource:
-    """Interface of density sources (values per m² in the equal-area plane)."""
+    @property
+    def area(self) -> float:
+        """The scale of a hit count: the proposal's total count."""
+        return self.total
 
-    label = "density"
+    def map(self, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Map ``(n, 3)`` uniforms to plane points (the :class:`~areamc.samplers.Domain` protocol)."""
+        return self.draw(u)
 
-    def prepare(self, region) -> None:
-        """Get ready to answer for points in and near `region` (plane metres)."""
+
+class DensityView(Protocol):
+    """A density source's answers for one region (plane metres; densities per m²)."""
+
+    region: object
+    nodata_cells: np.ndarray
 
     def density(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
         """Density (count per m²) at plane points; non-negative and finite."""
-        raise NotImplementedError
+        ...
 
-    def exact_total(self, region) -> float | None:
-        """Exact integral of the density over `region` (plane metres), or None."""
-        return None
+    def exact_total(self, clip=None) -> float | None:
+        """Exact integral of the density over the region (∩ `clip`), or None."""
+        ...
 
-    def proposal(self, region) -> Proposal | None:
-        """An importance sampler for `region`, or None when the source cannot offer one there."""
-        return None
+    def proposal(self) -> Proposal | None:
+        """An importance sampler for the region, or None when the source cannot offer one there."""
+        ...
 
-    def finish(self) -> None:
-        """Report what was skipped (for instance nodata cells)."""
+
+class DensitySource(Protocol):
+    """A density over the equal-area plane that builds a :class:`DensityView` per region."""
+
+    label: str
+
+    def for_region(self, region) -> DensityView:
+        """The view of `region` (a shapely polygon in plane metres)."""
+        ...
+
+
+_NO_CELLS = np.zeros(0, dtype=np.int64)
 
 
 def block_counts(layer: Layer, field: str) -> np.ndarray:
-    """Read the count of every block from `field`; refuse missing, non-numeric or negative values."""
+    """Read the count of every block from `field`; refuse missing, non-numeric or negative values.
+
+    Raises
+    ------
+    LayerError
+        Naming the layer and the feature at fault (parameter ``count_field``).
+    """
     if layer.properties and field not in layer.properties[0]:
         fields = ", ".join(layer.properties[0]) or "(none)"
-        raise LayerError(f"{layer.source}: --count-field {field!r} is not a field; fields: {fields}")
+        raise LayerError(f"{layer.source}: {{param}} {field!r} is not a field; fields: {fields}", param="count_field")
     counts = np.empty(len(layer))
     for i, (fid, props) in enumerate(zip(layer.ids, layer.properties)):
         value = props.get(field)
@@ -122,6 +163,8 @@ def block_counts(layer: Layer, field: str) -> np.ndarray:
     return counts
 
 
+# -- blocks -------------------------------------------------------------------
+
 def _triangles(geom) -> np.ndarray:
     """Triangles of a polygon's constrained Delaunay triangulation, shape (t, 3, 2)."""
     out = []
@@ -129,6 +172,11 @@ def _triangles(geom) -> np.ndarray:
         for tri in shapely.get_parts(shapely.constrained_delaunay_triangles(part)):
             out.append(np.asarray(tri.exterior.coords)[:3])
     return np.array(out, dtype=float).reshape(-1, 3, 2)
+
+
+def _tri_area(t: np.ndarray) -> np.ndarray:
+    a, b, c = t[:, 0], t[:, 1], t[:, 2]
+    return 0.5 * np.abs((b[:, 0] - a[:, 0]) * (c[:, 1] - a[:, 1]) - (c[:, 0] - a[:, 0]) * (b[:, 1] - a[:, 1]))
 
 
 def _in_triangles(tris: np.ndarray, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -141,7 +189,7 @@ def _in_triangles(tris: np.ndarray, u: np.ndarray) -> tuple[np.ndarray, np.ndarr
     return p[:, 0], p[:, 1]
 
 
-class BlockDensity(DensitySource):
+class BlockDensity:
     """Counts on polygon blocks, uniform within each block (areal weighting).
 
     Parameters
@@ -162,40 +210,65 @@ class BlockDensity(DensitySource):
             self.rates = np.where(self.areas > 0, self.counts / self.areas, 0.0)
         shapely.prepare(blocks.planar)
         self._tree = shapely.STRtree(blocks.planar)
-        self._index = ZoneIndex(blocks.planar, Box.of(shapely.total_bounds(blocks.planar)))
-        self._tri: dict[int, np.ndarray] = {}
+        self._index = GridIndex(blocks.planar, Box.of(shapely.total_bounds(blocks.planar)))
+        self._triangulations: dict[int, np.ndarray] = {}  # memo of a pure function of the block
 
-    def density(self, x, y):
+    def near(self, geom) -> np.ndarray:
+        """Indices of blocks sharing area with `geom` (plane metres); blocks that only touch it are left out."""
+        near = np.sort(self._tree.query(geom, predicate="intersects"))
+        return near[~shapely.touches(self.blocks.planar[near], geom)]
+
+    def density(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+        """Density (count per m²) at plane points; the same for every region."""
         point, block = self._index.pairs(x, y)
         return np.bincount(point, weights=self.rates[block], minlength=len(x))
 
-    def _near(self, region) -> np.ndarray:
-        """Blocks sharing area with `region` (neighbours that only touch it are left out)."""
-        near = np.sort(self._tree.query(region, predicate="intersects"))
-        return near[~shapely.touches(self.blocks.planar[near], region)]
+    def triangles(self, i: int) -> np.ndarray:
+        """Triangulation of block `i` (plane metres), shape (t, 3, 2)."""
+        tri = self._triangulations.get(i)
+        if tri is None:
+            tri = self._triangulations[i] = _triangles(self.blocks.planar[i])
+        return tri
 
-    def exact_total(self, region) -> float:
-        """Σ count_i |block_i ∩ region| / |block_i| (Goodchild & Lam 1980)."""
-        near = self._near(region)
-        if near.size == 0:
-            return 0.0
-        inter = shapely.area(shapely.intersection(self.blocks.planar[near], region))
-        return float(np.sum(self.rates[near] * inter))
+    def for_region(self, region) -> "BlockView":
+        """The view of `region` (plane metres)."""
+        return BlockView(self, region)
 
-    def proposal(self, region) -> Proposal | None:
-        near = [i for i in self._near(region) if self.counts[i] > 0]
+
+@dataclass(frozen=True, eq=False)
+class _PointwiseView:
+    """A view whose density at a point does not depend on the region: the source answers it."""
+
+    source: object
+    region: object
+    nodata_cells: np.ndarray = field(default_factory=lambda: _NO_CELLS, repr=False)
+
+    def density(self, x, y):
+        """Density (count per m²) at plane points."""
+        return self.source.density(x, y)
+
+
+@dataclass(frozen=True, eq=False)
+class BlockView(_PointwiseView):
+    """:class:`BlockDensity` answering for one region."""
+
+    def exact_total(self, clip=None) -> float:
+        """Σ count_i |block_i ∩ R| / |block_i| over the region R (∩ `clip`), Goodchild & Lam (1980)."""
+        geom = self.region if clip is None else shapely.intersection(self.region, clip)
+        near = self.source.near(geom)
+        return block_total(self.source.blocks.planar[near], self.source.rates[near], geom)
+
+    def proposal(self) -> Proposal:
+        """Draw a block by its count, then a point uniform in it (by its triangles)."""
+        src = self.source
+        near = [i for i in src.near(self.region) if src.counts[i] > 0]
         if not near:
             return Proposal(0.0, None)
-        tris, weights = [], []
-        for i in near:
-            t = self._tri.get(i)
-            if t is None:
-                t = self._tri[i] = _triangles(self.blocks.planar[i])
-            tris.append(t)
-            weights.append(self.rates[i] * _tri_area(t))
+        tris = [src.triangles(i) for i in near]
+        weights = [src.rates[i] * _tri_area(t) for i, t in zip(near, tris)]
         tri = np.concatenate(tris)
         cdf = np.cumsum(np.concatenate(weights))
-        total = float(sum(self.counts[i] for i in near))
+        total = float(sum(src.counts[i] for i in near))
 
         def draw(u: np.ndarray):
             pick = np.minimum(np.searchsorted(cdf, u[:, 0] * cdf[-1], side="right"), len(cdf) - 1)
@@ -204,23 +277,7 @@ class BlockDensity(DensitySource):
         return Proposal(total, draw)
 
 
-def _tri_area(t: np.ndarray) -> np.ndarray:
-    a, b, c = t[:, 0], t[:, 1], t[:, 2]
-    return 0.5 * np.abs((b[:, 0] - a[:, 0]) * (c[:, 1] - a[:, 1]) - (c[:, 0] - a[:, 0]) * (b[:, 1] - a[:, 1]))
-
-
-def _phi_from_q(q: np.ndarray, e: float) -> np.ndarray:
-    """Invert the authalic q function (Snyder 1987, eq. 3-16, iterated to convergence)."""
-    e2 = e * e
-    phi = np.arcsin(np.clip(q / 2, -1, 1))
-    for _ in range(8):
-        s = np.sin(phi)
-        c = np.maximum(np.cos(phi), 1e-15)
-        phi = phi + (1 - e2 * s * s) ** 2 / (2 * c) * (
-            q / (1 - e2) - s / (1 - e2 * s * s) - np.arctanh(e * s) / e
-        )
-    return phi
-
+# -- rasters ------------------------------------------------------------------
 
 def _apply(transform, u, v) -> tuple[np.ndarray, np.ndarray]:
     """Apply an affine transform to coordinate arrays (column/row to x/y, or back)."""
@@ -229,7 +286,7 @@ def _apply(transform, u, v) -> tuple[np.ndarray, np.ndarray]:
     return transform.a * u + transform.b * v + transform.c, transform.d * u + transform.e * v + transform.f
 
 
-class RasterDensity(DensitySource):
+class RasterDensity:
     """A GeoTIFF of counts per cell or density per unit area, read window by window.
 
     Parameters
@@ -239,17 +296,20 @@ class RasterDensity(DensitySource):
     plane : EqualAreaPlane
         The plane points are given in.
     values : {"count", "per-m2", "per-ha", "per-km2"}
-        What a cell value means.
+        What a cell value means (parameter ``values``).
     band : int
-        Band to read (1-based).
+        Band to read, 1-based (parameter ``band``).
 
     Notes
     -----
-    Nodata cells are treated as empty (density 0) and counted in a warning.
-    Importance sampling draws a cell by its count and a point uniform in area
-    inside it: for geographic rasters uniform in longitude and in the authalic
-    q (Snyder 1987), for equal-area projected rasters uniform in the cell; for
-    other CRSs :meth:`proposal` returns None and plain sampling is used.
+    Nodata cells are treated as empty (density 0); each view lists the ones
+    it met, and :func:`warn_nodata` reports them.  Importance sampling draws
+    a cell by its count and a point uniform in area inside it: for
+    geographic rasters uniform in longitude and in the authalic q (Snyder
+    1987), for equal-area projected rasters uniform in the cell; for other
+    CRSs the view's :meth:`~RasterView.proposal` returns None and plain
+    sampling is used.  The source holds the open dataset: use ``with`` or
+    :meth:`close`.
     """
 
     label = "raster"
@@ -259,17 +319,21 @@ class RasterDensity(DensitySource):
         import rasterio.errors
 
         if values not in RASTER_VALUES:
-            raise OptionError(f"--raster-values: unknown {values!r}; choose one of {', '.join(RASTER_VALUES)}")
+            raise OptionError(f"{{param}}: unknown {values!r}; choose one of {', '.join(RASTER_VALUES)}", param="values")
         if not os.path.exists(path):
             raise LayerError(f"{path}: no such file")
         try:
             self._ds = rasterio.open(path)
         except (rasterio.errors.RasterioError, OSError) as err:
             raise LayerError(f"{path}: not a readable raster ({' '.join(str(err).split())[:160]})") from err
-        if self._ds.crs is None:
-            raise LayerError(f"{path}: the raster declares no CRS")
-        if not 1 <= band <= self._ds.count:
-            raise OptionError(f"--band: {path} has {self._ds.count} band(s), not {band}")
+        try:
+            if self._ds.crs is None:
+                raise LayerError(f"{path}: the raster declares no CRS")
+            if not 1 <= band <= self._ds.count:
+                raise OptionError(f"{{param}}: {path} has {self._ds.count} band(s), not {band}", param="band")
+        except InputError:
+            self._ds.close()
+            raise
         self.path = path
         self.band = band
         self.values = values
@@ -277,23 +341,33 @@ class RasterDensity(DensitySource):
         self.crs = pyproj.CRS.from_wkt(self._ds.crs.to_wkt())
         self._to_raster = transformer(plane.crs, self.crs)
         self._to_plane = transformer(self.crs, plane.crs)
-        self._geographic = self.crs.is_geographic
         ell = self.crs.ellipsoid
         self._a = ell.semi_major_metre
         self._rf = ell.inverse_flattening or math.inf
-        self._e = math.sqrt((2 - 1 / self._rf) / self._rf) if math.isfinite(self._rf) else 0.0
-        self._equal_area: bool | None = None
-        self._nodata: list[np.ndarray] = []
-        self._window = None
-        self._cells = None
 
-    # -- windows ------------------------------------------------------------
+    def __enter__(self) -> "RasterDensity":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def close(self) -> None:
+        """Close the raster file."""
+        self._ds.close()
+
+    @property
+    def geographic(self) -> bool:
+        return bool(self.crs.is_geographic)
+
     def _window_for(self, region):
         from rasterio.windows import Window, from_bounds
 
         xmin, ymin, xmax, ymax = region.bounds
         bx = self._to_raster.transform_bounds(xmin, ymin, xmax, ymax, densify_pts=21)
         win = from_bounds(*bx, transform=self._ds.transform)
+        if (win.col_off >= self._ds.width or win.col_off + win.width <= 0
+                or win.row_off >= self._ds.height or win.row_off + win.height <= 0):
+            return None  # the region's box lies wholly beyond the grid (before the one-cell margin below)
         col0 = max(int(math.floor(win.col_off)) - 1, 0)
         row0 = max(int(math.floor(win.row_off)) - 1, 0)
         col1 = min(int(math.ceil(win.col_off + win.width)) + 1, self._ds.width)
@@ -303,24 +377,24 @@ class RasterDensity(DensitySource):
         return Window(col0, row0, col1 - col0, row1 - row0)
 
     def overlaps(self, region) -> bool:
-        """True when the raster covers part of `region`'s bounding box."""
+        """True when the raster covers part of `region`'s bounding box (plane metres)."""
         return self._window_for(region) is not None
 
-    def prepare(self, region) -> None:
+    def for_region(self, region) -> "RasterView":
+        """Read the window of cells around `region` (plane metres) and return its view."""
         win = self._window_for(region)
-        self._window = None
-        self._cells = None  # cell outlines in the plane for this window, built on first need
         if win is None:
-            return
+            return RasterView(self, region, None, None, None)
         data = self._ds.read(self.band, window=win, masked=True).astype(float)
         mask = np.ma.getmaskarray(data)
         raw = np.ma.filled(data, 0.0)
         if np.isnan(raw).any():
             mask = mask | np.isnan(raw)
             raw = np.where(np.isnan(raw), 0.0, raw)
+        nodata = _NO_CELLS
         if mask.any():
             r, c = np.nonzero(mask)
-            self._nodata.append((r + int(win.row_off)) * self._ds.width + (c + int(win.col_off)))
+            nodata = (r + int(win.row_off)) * self._ds.width + (c + int(win.col_off))
         if (raw < 0).any():
             r, c = np.argwhere(raw < 0)[0]
             raise InputError(
@@ -329,101 +403,112 @@ class RasterDensity(DensitySource):
             )
         transform = self._ds.window_transform(win)
         rows, cols = raw.shape
-        cell_area = self._cell_areas(transform, rows, cols)
-        if self.values == "count":
-            counts = raw
+        outlines = None if self.geographic else _cell_outlines(self._to_plane, transform, rows, cols)
+        if self.geographic:
+            xs, ys = _corners(transform, rows, cols)
+            cell_area = np.asarray(quadrangle_area(xs[:-1, :-1], ys[:-1, :-1], xs[1:, 1:], ys[1:, 1:],
+                                                   a=self._a, rf=self._rf), float)
         else:
-            counts = raw / RASTER_VALUES[self.values] * cell_area
+            cell_area = shapely.area(outlines).reshape(rows, cols)
+        counts = raw if self.values == "count" else raw / RASTER_VALUES[self.values] * cell_area
         with np.errstate(divide="ignore", invalid="ignore"):
             rates = np.where(cell_area > 0, counts / cell_area, 0.0)
-        self._window = (transform, counts, rates, cell_area)
+        return RasterView(self, region, transform, counts, rates, nodata, outlines)
 
-    def _corners(self, transform, rows, cols):
-        cc, rr = np.meshgrid(np.arange(cols + 1), np.arange(rows + 1))
-        xs, ys = _apply(transform, cc.ravel(), rr.ravel())
-        return np.asarray(xs).reshape(rows + 1, cols + 1), np.asarray(ys).reshape(rows + 1, cols + 1)
 
-    def _cell_polygons(self, transform, rows, cols) -> np.ndarray:
-        """Cell outlines in the plane (4 corners each), shape (rows * cols,)."""
-        xs, ys = self._corners(transform, rows, cols)
-        px, py = self._to_plane.transform(xs.ravel(), ys.ravel())
-        px = np.asarray(px).reshape(rows + 1, cols + 1)
-        py = np.asarray(py).reshape(rows + 1, cols + 1)
-        ring = np.stack(
-            [
-                np.stack([px[:-1, :-1], py[:-1, :-1]], -1),
-                np.stack([px[:-1, 1:], py[:-1, 1:]], -1),
-                np.stack([px[1:, 1:], py[1:, 1:]], -1),
-                np.stack([px[1:, :-1], py[1:, :-1]], -1),
-            ],
-            axis=2,
-        ).reshape(rows * cols, 4, 2)
-        return shapely.polygons(ring)
+def _corners(transform, rows: int, cols: int):
+    """Cell corner coordinates of a window in the raster's CRS, shape (rows + 1, cols + 1) each."""
+    cc, rr = np.meshgrid(np.arange(cols + 1), np.arange(rows + 1))
+    xs, ys = _apply(transform, cc.ravel(), rr.ravel())
+    return np.asarray(xs).reshape(rows + 1, cols + 1), np.asarray(ys).reshape(rows + 1, cols + 1)
 
-    def _cell_areas(self, transform, rows, cols) -> np.ndarray:
-        """True area (m²) of each cell: closed form on the ellipsoid, or planar in the equal-area plane."""
-        if self._geographic:
-            xs, ys = self._corners(transform, rows, cols)
-            area = quadrangle_area(xs[:-1, :-1], ys[:-1, :-1], xs[1:, 1:], ys[1:, 1:], a=self._a, rf=self._rf)
-            return np.asarray(area, float)
-        self._cells = self._cell_polygons(transform, rows, cols)
-        return shapely.area(self._cells).reshape(rows, cols)
 
-    # -- queries ------------------------------------------------------------
+def _cell_outlines(to_plane, transform, rows: int, cols: int) -> np.ndarray:
+    """Cell outlines in the plane (4 projected corners each), shape (rows * cols,)."""
+    xs, ys = _corners(transform, rows, cols)
+    px, py = to_plane.transform(xs.ravel(), ys.ravel())
+    px = np.asarray(px).reshape(rows + 1, cols + 1)
+    py = np.asarray(py).reshape(rows + 1, cols + 1)
+    ring = np.stack(
+        [
+            np.stack([px[:-1, :-1], py[:-1, :-1]], -1),
+            np.stack([px[:-1, 1:], py[:-1, 1:]], -1),
+            np.stack([px[1:, 1:], py[1:, 1:]], -1),
+            np.stack([px[1:, :-1], py[1:, :-1]], -1),
+        ],
+        axis=2,
+    ).reshape(rows * cols, 4, 2)
+    return shapely.polygons(ring)
+
+
+@dataclass(frozen=True, eq=False)
+class RasterView:
+    """:class:`RasterDensity` answering for one region: the cells of its window, in the plane.
+
+    `transform` is None when the raster does not reach the region; then the
+    density is 0 there.  `counts` and `rates` are per cell of the window
+    (persons, and persons per m²).
+    """
+
+    source: RasterDensity
+    region: object
+    transform: object | None
+    counts: np.ndarray | None
+    rates: np.ndarray | None
+    nodata_cells: np.ndarray = field(default_factory=lambda: _NO_CELLS, repr=False)
+    outlines: np.ndarray | None = field(default=None, repr=False)
+
+    @cached_property
+    def cells(self) -> np.ndarray:
+        """Cell outlines in the plane (built on first need for geographic rasters)."""
+        if self.outlines is not None:
+            return self.outlines
+        return _cell_outlines(self.source._to_plane, self.transform, *self.counts.shape)
+
     def density(self, x, y):
+        """Density (count per m²) at plane points; 0 outside the window."""
         out = np.zeros(len(x))
-        if self._window is None:
+        if self.transform is None:
             return out
-        transform, _, rates, _ = self._window
-        rx, ry = self._to_raster.transform(x, y)
-        col, row = _apply(~transform, np.asarray(rx), np.asarray(ry))
+        rx, ry = self.source._to_raster.transform(x, y)
+        col, row = _apply(~self.transform, np.asarray(rx), np.asarray(ry))
         col = np.floor(col).astype(np.int64)
         row = np.floor(row).astype(np.int64)
-        ok = (row >= 0) & (row < rates.shape[0]) & (col >= 0) & (col < rates.shape[1])
-        out[ok] = rates[row[ok], col[ok]]
+        ok = (row >= 0) & (row < self.rates.shape[0]) & (col >= 0) & (col < self.rates.shape[1])
+        out[ok] = self.rates[row[ok], col[ok]]
         return out
 
-    def exact_total(self, region) -> float:
-        """Σ cell count x share of the cell inside `region` (cells outlined by their 4 corners in the plane)."""
-        if self._window is None:
+    def exact_total(self, clip=None) -> float:
+        """Σ cell count x share of the cell inside the region (∩ `clip`); cells outlined by 4 corners in the plane."""
+        if self.transform is None:
             return 0.0
-        transform, counts, _, _ = self._window
-        if self._cells is None:
-            self._cells = self._cell_polygons(transform, *counts.shape)
-        cells = self._cells
-        flat = counts.ravel()
-        keep = flat > 0
-        cells, flat = cells[keep], flat[keep]
-        hit = shapely.intersects(region, cells)
-        cells, flat = cells[hit], flat[hit]
-        if not len(cells):
-            return 0.0
-        share = shapely.area(shapely.intersection(cells, region)) / shapely.area(cells)
-        return float(np.sum(flat * share))
+        geom = self.region if clip is None else shapely.intersection(self.region, clip)
+        return cell_total(self.cells, self.counts.ravel(), geom)
 
-    def _importance_ok(self, region) -> bool:
-        if self._geographic:
+    def _importance_ok(self) -> bool:
+        if self.source.geographic:
             return True
-        if self._equal_area is None:
-            to_ll = transformer(self.plane.crs, LONLAT)
-            xmin, ymin, xmax, ymax = region.bounds
-            bounds = to_ll.transform_bounds(xmin, ymin, xmax, ymax, densify_pts=21)
-            self._equal_area = measure_area_distortion(self.crs, bounds)[0] <= 1e-6
-        return self._equal_area
+        to_ll = transformer(self.source.plane.crs, LONLAT)
+        xmin, ymin, xmax, ymax = self.region.bounds
+        bounds = to_ll.transform_bounds(xmin, ymin, xmax, ymax, densify_pts=21)
+        return measure_area_distortion(self.source.crs, bounds)[0] <= 1e-6
 
-    def proposal(self, region) -> Proposal | None:
-        if self._window is None:
+    def proposal(self) -> Proposal | None:
+        """Draw a cell by its count, then a point uniform in area inside it; None for a raster CRS that is not equal-area."""
+        if self.transform is None:
             return Proposal(0.0, None)
-        if not self._importance_ok(region):
+        if not self._importance_ok():
             return None
-        transform, counts, _, _ = self._window
-        flat = counts.ravel()
+        flat = self.counts.ravel()
         cells = np.nonzero(flat > 0)[0]
         if not len(cells):
             return Proposal(0.0, None)
         cdf = np.cumsum(flat[cells])
-        cols = counts.shape[1]
-        e = self._e
+        cols = self.counts.shape[1]
+        transform = self.transform
+        geographic = self.source.geographic
+        e = eccentricity(self.source._rf)
+        to_plane = self.source._to_plane
 
         def draw(u: np.ndarray):
             pick = cells[np.minimum(np.searchsorted(cdf, u[:, 0] * cdf[-1], side="right"), len(cells) - 1)]
@@ -431,38 +516,40 @@ class RasterDensity(DensitySource):
             x0, y0 = _apply(transform, col, row)
             x1, y1 = _apply(transform, col + 1, row + 1)
             gx = np.asarray(x0) + u[:, 1] * (np.asarray(x1) - np.asarray(x0))
-            if self._geographic and e > 0:
+            if geographic and e > 0:
                 q0, q1 = authalic_q(np.radians(y0), e), authalic_q(np.radians(y1), e)
-                gy = np.degrees(_phi_from_q(q0 + u[:, 2] * (q1 - q0), e))
-            elif self._geographic:
+                gy = np.degrees(latitude_from_q(q0 + u[:, 2] * (q1 - q0), e))
+            elif geographic:
                 s0, s1 = np.sin(np.radians(y0)), np.sin(np.radians(y1))
                 gy = np.degrees(np.arcsin(s0 + u[:, 2] * (s1 - s0)))
             else:
                 gy = np.asarray(y0) + u[:, 2] * (np.asarray(y1) - np.asarray(y0))
-            px, py = self._to_plane.transform(gx, gy)
+            px, py = to_plane.transform(gx, gy)
             return np.asarray(px), np.asarray(py)
 
         return Proposal(float(cdf[-1]), draw)
 
-    @property
-    def nodata_cells(self) -> int:
-        """Distinct nodata cells met in the windows read so far."""
-        return int(np.unique(np.concatenate(self._nodata)).size) if self._nodata else 0
 
-    def finish(self) -> None:
-        if self.nodata_cells:
-            warnings.warn(
-                f"{self.path}: {self.nodata_cells} nodata cell(s) over the regions were treated as empty",
-                AreamcWarning,
-                stacklevel=2,
-            )
+def warn_nodata(source, views) -> int:
+    """Warn once about the distinct nodata cells the `views` met; returns their number."""
+    cells = [v.nodata_cells for v in views if len(v.nodata_cells)]
+    count = int(np.unique(np.concatenate(cells)).size) if cells else 0
+    if count:
+        warnings.warn(
+            f"{getattr(source, 'path', source.label)}: {count} nodata cell(s) over the regions were treated as empty",
+            AreamcWarning,
+            stacklevel=2,
+        )
+    return count
 
 
-class ExpressionDensity(DensitySource):
+# -- expressions --------------------------------------------------------------
+
+class ExpressionDensity:
     """A density given by an expression in ``x``, ``y`` (plane metres) or ``lon``, ``lat`` (degrees).
 
     Values are per m².  Negative or non-finite values at a sampled point stop
-    the run with an :class:`~areamc.errors.InputError`.
+    the run with an :class:`~areamc.errors.InputError` (parameter ``density``).
     """
 
     label = "expression"
@@ -473,6 +560,7 @@ class ExpressionDensity(DensitySource):
         self._to_lonlat = transformer(plane.crs, LONLAT) if self.expression.uses_lonlat else None
 
     def density(self, x, y):
+        """Density (per m²) at plane points."""
         env = {"x": np.asarray(x, float), "y": np.asarray(y, float)}
         if self._to_lonlat is not None:
             lon, lat = self._to_lonlat.transform(x, y)
@@ -482,7 +570,133 @@ class ExpressionDensity(DensitySource):
         if bad.any():
             i = int(np.argmax(bad))
             raise InputError(
-                f"--density: expression {self.expression.text!r} gives {value[i]:g} at plane point "
-                f"({x[i]:.1f}, {y[i]:.1f}); a density must be non-negative and finite"
+                f"{{param}}: expression {self.expression.text!r} gives {value[i]:g} at plane point "
+                f"({x[i]:.1f}, {y[i]:.1f}); a density must be non-negative and finite", param="density"
             )
         return value
+
+    def for_region(self, region) -> "ExpressionView":
+        return ExpressionView(self, region)
+
+
+@dataclass(frozen=True, eq=False)
+class ExpressionView(_PointwiseView):
+    """:class:`ExpressionDensity` for one region: no exact total and no importance sampler."""
+
+    def exact_total(self, clip=None) -> None:
+        return None
+
+    def proposal(self) -> None:
+        return None
+
+
+# -- naming a source ----------------------------------------------------------
+
+@dataclass(frozen=True)
+class DensitySpec:
+    """A density source as named by the user, read but not yet on a plane.
+
+    Attributes
+    ----------
+    kind : {"blocks", "raster", "expression"}
+    text : str
+        What was named: a path or the expression.
+    blocks : Layer or None
+        The block layer (in its own CRS), to be projected with the regions.
+    counts : numpy.ndarray or None
+        The count of each block.
+    expression : Expression or None
+    values : str
+        What raster cells hold (see :data:`RASTER_VALUES`).
+    band : int
+    count_field : str or None
+    """
+
+    kind: str
+    text: str
+    blocks: Layer | None = None
+    counts: np.ndarray | None = None
+    expression: Expression | None = None
+    values: str = "count"
+    band: int = 1
+    count_field: str | None = None
+
+    def to_dict(self) -> dict:
+        return {"source": self.text, "kind": self.kind, "count_field": self.count_field,
+                "raster_values": self.values if self.kind == "raster" else None}
+
+
+def guess_density_kind(text: str) -> str:
+    """Guess the kind of a density source: a raster by extension, another existing file as blocks, else an expression.
+
+    Raises
+    ------
+    LayerError
+        For a path with a raster or vector extension that does not exist.
+    """
+    lower = text.lower()
+    if os.path.exists(text):
+        return "raster" if lower.endswith(_RASTER_EXT) else "blocks"
+    if lower.endswith(_RASTER_EXT + _VECTOR_EXT):
+        raise LayerError(f"{text}: no such file")
+    return "expression"
+
+
+def read_density(
+    text: str,
+    *,
+    kind: str = "auto",
+    layer: str | None = None,
+    count_field: str | None = None,
+    values: str = "count",
+    band: int = 1,
+) -> DensitySpec:
+    """Read the density source `text` names, checking it fully before any sampling.
+
+    Parameters
+    ----------
+    text : str
+        A block layer path, a raster path, or an expression.
+    kind : {"auto", "blocks", "raster", "expression"}
+        How to read `text`; "auto" guesses (:func:`guess_density_kind`).
+    layer, count_field : str, optional
+        Layer of the block file, and the attribute holding each block's count (needed for blocks).
+    values, band
+        For rasters: what a cell holds, and which band to read.
+    """
+    if kind == "auto":
+        kind = guess_density_kind(text)
+    if kind not in DENSITY_KINDS:
+        raise OptionError(f"{{param}}: unknown kind {kind!r}; choose one of auto, {', '.join(DENSITY_KINDS)}",
+                          param="density_kind")
+    if values not in RASTER_VALUES:
+        raise OptionError(f"{{param}}: unknown {values!r}; choose one of {', '.join(RASTER_VALUES)}", param="values")
+    if kind == "blocks":
+        if not count_field:
+            raise OptionError(f"{text}: a block layer needs {{param}}", param="count_field")
+        blocks = read_layer(text, layer=layer)
+        return DensitySpec(kind, text, blocks=blocks, counts=block_counts(blocks, count_field),
+                           count_field=count_field)
+    if kind == "expression":
+        return DensitySpec(kind, text, expression=parse_expression(text))
+    return DensitySpec(kind, text, values=values, band=band)
+
+
+def build_density(spec: DensitySpec, plane: EqualAreaPlane, blocks: ProjectedLayer | None = None,
+                  regions: ProjectedLayer | None = None):
+    """Make the density source of `spec` on `plane` (the blocks already projected onto it).
+
+    With `regions`, a raster that covers none of them is refused.  A raster
+    source holds its file open: close it (or use it in ``with``) when done.
+    """
+    if spec.kind == "blocks":
+        if blocks is None:
+            raise ValueError("a block density needs its projected block layer")
+        return BlockDensity(blocks, spec.counts)
+    if spec.kind == "expression":
+        return ExpressionDensity(spec.expression, plane)
+    raster = RasterDensity(spec.text, plane, values=spec.values, band=spec.band)
+    if regions is not None and not any(raster.overlaps(g) for g in regions.planar):
+        raster.close()
+        raise LayerError(f"{spec.text}: the raster does not overlap the regions")
+    return raster

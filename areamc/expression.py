@@ -103,7 +103,7 @@ def _fail(text: str, node: ast.AST, what: str, verdict: str = "not allowed"):
     start = getattr(node, "col_offset", 0)
     end = getattr(node, "end_col_offset", start + 1) or start + 1
     part = text[start:end]
-    raise OptionError(f"--density: {what} {verdict} in expression {text!r}, at column {start + 1}: {part!r}")
+    raise OptionError(f"{{param}}: {what} {verdict} in expression {text!r}, at column {start + 1}: {part!r}", param="density")
 
 
 def parse_expression(text: str) -> Expression:
@@ -113,7 +113,7 @@ def parse_expression(text: str) -> Expression:
         tree = ast.parse(text, mode="eval")
     except SyntaxError as err:
         col = (err.offset or 1)
-        raise OptionError(f"--density: syntax error in expression {text!r} at column {col}: {err.msg}") from None
+        raise OptionError(f"{{param}}: syntax error in expression {text!r} at column {col}: {err.msg}", param="density") from None
     names: set[str] = set()
     for node in ast.walk(tree):
         if isinstance(node, (ast.Expression, ast.Load)) or type(node) in _BINARY or type(node) in _UNARY or type(node) in _COMPARE:
@@ -171,4 +171,4 @@ def _eval(node: ast.AST, env: dict):
         return np.asarray(result, dtype=float)
     if isinstance(node, ast.Call):
         return FUNCTIONS[node.func.id](*[_eval(arg, env) for arg in node.args])
-    raise OptionError(f"--density: cannot evaluate {type(node).__name__}")  # unreachable after parse
+    raise OptionError(f"{{param}}: cannot evaluate {type(node).__name__}", param="density")  # unreachable after parse

@@ -1,10 +1,11 @@
 """The integrate job: totals of a density (for example persons) over regions.
 
-Per region the density source is prepared (a raster window is read), then
-:func:`~areamc.weighted.weighted_run` samples it by importance where the
-source allows, else uniformly; the exact total (areal weighting for blocks,
-cell fractions for rasters) is the check.  Totals are in the source's count
-unit; mean densities per m² of the equal-area plane.
+Per region the density source gives its view of the region (a raster window
+is read), then :func:`~areamc.weighted.weighted_run` samples it by importance
+where the view allows, else uniformly; the exact total (areal weighting for
+blocks, cell fractions for rasters, :mod:`areamc.exact`) is the check.
+Totals are in the source's count unit; mean densities per m² of the
+equal-area plane.
 """
 
 from __future__ import annotations
@@ -15,14 +16,19 @@ from dataclasses import asdict, dataclass
 import numpy as np
 import shapely
 
-from .density import DensitySource
-from .estimate import DEFAULT_CHUNK, StopRule, check_confidence
-from .exact import FLAG_Z, deviation, planar_area
-from .project import EqualAreaPlane, ProjectedLayer
-from .sampling import make_seed
-from .weighted import WeightedRun, weighted_run
+from .checks import flagged, normal_deviation
+from .density import DensitySource, warn_nodata
+from .engine import DEFAULT_CHUNK
+from .exact import planar_area
+from .intervals import check_confidence
+from .project import ProjectedLayer
+from .runinfo import RunInfo
+from .samplers import SamplerFactory, sampler_name
+from .seeds import child_seed, job_root, make_seed
+from .stopping import StopRule
+from .weighted import NONE, TOTAL, weighted_run
 
-__all__ = ["IntegrateRow", "IntegrateReport", "integrate_density", "total_target"]
+__all__ = ["IntegrateRow", "IntegrateReport", "integrate_density"]
 
 
 @dataclass(frozen=True)
@@ -44,7 +50,12 @@ class IntegrateRow:
     exact : float or None
         Exact total from the source (areal weighting, cell fractions), or None.
     z : float or None
-        ``(estimate − exact) / stderr``.
+        Deviation from the exact total: the binomial mid-p score for
+        importance sampling, standard errors for uniform sampling (:mod:`areamc.checks`).
+    flagged : bool
+    stop_reason : str
+        Why sampling stopped ("budget", "target", "time"), or "none" when nothing was sampled.
+    pilot_points : int
     """
 
     id: str
@@ -59,6 +70,8 @@ class IntegrateRow:
     exact: float | None
     z: float | None
     flagged: bool
+    stop_reason: str
+    pilot_points: int
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -66,33 +79,14 @@ class IntegrateRow:
 
 @dataclass(frozen=True)
 class IntegrateReport:
+    """Rows of an integrate job, the run's settings, and the density source's label."""
+
     rows: tuple[IntegrateRow, ...]
-    plane: EqualAreaPlane
-    confidence: float
-    seed_entropy: int
+    run: RunInfo
     source: str
 
     def metadata(self) -> dict:
-        return {
-            "equal_area_crs": self.plane.to_dict(),
-            "confidence": self.confidence,
-            "seed": self.seed_entropy,
-            "density_source": self.source,
-        }
-
-
-def total_target(stop: StopRule, confidence: float):
-    """Early-stopping test of `stop` on the total (column 0) of a weighted run."""
-    if not stop.adaptive:
-        return None
-
-    def done(method, scale, sums, sumsq, points) -> bool:
-        if points < 2 or sums[0] <= 0:
-            return False
-        est = WeightedRun(method, points, scale, sums, sumsq, False).total(confidence)
-        return stop.met(est.half_width, est.estimate)
-
-    return done
+        return {**self.run.to_dict(), "density_source": self.source}
 
 
 def integrate_density(
@@ -102,6 +96,7 @@ def integrate_density(
     stop: StopRule | None = None,
     confidence: float = 0.95,
     seed: int | np.random.SeedSequence | None = None,
+    sampler: str | SamplerFactory = "uniform",
     chunk: int = DEFAULT_CHUNK,
     importance: bool = True,
     exact: bool = True,
@@ -117,6 +112,10 @@ def integrate_density(
     stop : StopRule
         Points per region, or a precision target on the total (absolute in
         the count unit, or relative).
+    seed : int or SeedSequence, optional
+        Region ``r`` samples from the stream keyed ``("integrate", r)``.
+    sampler : str or sampler class
+        See :func:`~areamc.samplers.make_sampler`.
     importance : bool
         Sample by importance where the source allows (blocks, rasters).
     exact : bool
@@ -129,36 +128,42 @@ def integrate_density(
     stop = stop or StopRule()
     confidence = check_confidence(confidence)
     root = make_seed(seed)
+    streams = job_root(root, "integrate")
     shapely.prepare(regions.planar)
     areas = planar_area(regions.planar)
     rows = []
+    views = []
     for r, (rid, region) in enumerate(zip(regions.ids, regions.planar)):
-        source.prepare(region)
+        view = source.for_region(region)
+        views.append(view)
         run = weighted_run(
-            region,
+            view,
             lambda x, y, region=region: shapely.contains_xy(region, x, y)[:, None],
-            source,
-            root,
-            (r,),
-            budget=stop.budget,
+            child_seed(streams, r),
+            stop=stop,
+            confidence=confidence,
+            target=TOTAL,
+            sampler=sampler,
             chunk=chunk,
             importance=importance,
-            done=total_target(stop, confidence),
         )
-        truth = source.exact_total(region) if exact else None
+        truth = view.exact_total() if exact else None
         if run is None:
-            rows.append(IntegrateRow(rid, 0.0, 0.0, 0.0, 0.0, 0.0, float(areas[r]), 0, "none", truth,
-                                     deviation(0.0, truth, 0.0) if truth is not None else None, False))
+            z = normal_deviation(0.0, truth, 0.0) if truth is not None else None
+            rows.append(IntegrateRow(rid, 0.0, 0.0, 0.0, 0.0, 0.0, float(areas[r]), 0, NONE, truth, z, flagged(z),
+                                     NONE, 0))  # no density near the region: nothing was sampled
             continue
         est = run.total(confidence)
-        z = deviation(est.estimate, truth, est.check_scale) if truth is not None else None
+        z = est.deviation(truth) if truth is not None else None
         rows.append(
             IntegrateRow(
                 id=rid, estimate=est.estimate, stderr=est.stderr, ci_low=est.ci_low, ci_high=est.ci_high,
                 mean_density=float(est.estimate / areas[r]) if areas[r] > 0 else math.nan, region_area=float(areas[r]),
-                points=run.points, method=run.method, exact=truth, z=z,
-                flagged=bool(z is not None and abs(z) > FLAG_Z),
+                points=run.points, method=run.method, exact=truth, z=z, flagged=flagged(z),
+                stop_reason=run.reason, pilot_points=run.pilot_points,
             )
         )
-    source.finish()
-    return IntegrateReport(tuple(rows), regions.plane, confidence, int(root.entropy), source.label)
+    warn_nodata(source, views)
+    info = RunInfo("integrate", regions.plane, confidence, int(root.entropy), sampler_name(sampler), stop,
+                   regions.densify_m)
+    return IntegrateReport(tuple(rows), info, source.label)

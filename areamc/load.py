@@ -20,16 +20,12 @@ import pyproj
 import shapely
 from shapely.geometry import shape
 
-from .errors import CRSError, LayerError
+from .errors import AreamcWarning, CRSError, LayerError
 
-__all__ = ["Layer", "AreamcWarning", "read_layer", "list_layers", "parse_crs"]
+__all__ = ["Layer", "read_layer", "list_layers", "parse_crs", "layer_from_geometries"]
 
 _POLYGONAL = {"Polygon", "MultiPolygon"}
 _PUNCTUAL = {"Point", "MultiPoint"}
-
-
-class AreamcWarning(UserWarning):
-    """Warning about input that areamc used after a repair or skipped on purpose."""
 
 
 @dataclass(frozen=True)
@@ -41,9 +37,9 @@ class Layer:
     path, layer : str
         File and layer name the features came from.
     crs : pyproj.CRS
-        CRS of the coordinates in `geometries` (from the file, or ``--input-crs``).
+        CRS of the coordinates in `geometries` (from the file, or the ``input_crs`` given).
     ids : tuple of str
-        One label per kept feature (the ``--id-field`` value, else the feature id).
+        One label per kept feature (the ``id_field`` value, else the feature id).
     geometries : numpy.ndarray of shapely geometries
         Polygons/MultiPolygons (or Points for point layers), 2-D, valid, non-empty.
     properties : tuple of dict
@@ -81,15 +77,18 @@ class Layer:
         return f"{self.path} (layer {self.layer})"
 
 
-def parse_crs(text: str, option: str = "--crs") -> pyproj.CRS:
-    """Parse an EPSG code (``"EPSG:6933"`` or ``"6933"``), PROJ string or WKT into a CRS."""
+def parse_crs(text: str, param: str = "crs") -> pyproj.CRS:
+    """Parse an EPSG code (``"EPSG:6933"`` or ``"6933"``), PROJ string or WKT into a CRS.
+
+    Errors name `param`, the parameter the text came from.
+    """
     try:
         value = text.strip()
         if value.isdigit():
             value = f"EPSG:{value}"
         return pyproj.CRS.from_user_input(value)
     except (pyproj.exceptions.CRSError, ValueError, TypeError) as err:
-        raise CRSError(f"{option}: unknown CRS {text!r}") from err
+        raise CRSError(f"{{param}}: unknown CRS {text!r}", param=param) from err
 
 
 def list_layers(path: str) -> list[str]:
@@ -152,8 +151,8 @@ def read_layer(
             fields = list(src.schema.get("properties", {}))
             if id_field is not None and id_field not in fields:
                 raise LayerError(
-                    f"{path}: --id-field {id_field!r} is not a field of layer {layer!r}; "
-                    f"fields: {', '.join(fields) or '(none)'}"
+                    f"{path}: {{param}} {id_field!r} is not a field of layer {layer!r}; "
+                    f"fields: {', '.join(fields) or '(none)'}", param="id_field"
                 )
             records = [(feat.id, feat.geometry, dict(feat.properties)) for feat in src]
     except (fiona.errors.FionaError, OSError, ValueError) as err:
@@ -245,7 +244,7 @@ def _label(fid, properties, id_field, path) -> str:
         return str(fid)
     value = properties.get(id_field)
     if value is None:
-        raise LayerError(f"{path}: feature {fid} has no value in --id-field {id_field!r}")
+        raise LayerError(f"{path}: feature {fid} has no value in {{param}} {id_field!r}", param="id_field")
     return str(value)
 
 
@@ -256,16 +255,16 @@ def _layer_crs(src, path, input_crs) -> pyproj.CRS:
         if wkt:
             declared = pyproj.CRS.from_wkt(wkt)
     if input_crs is not None:
-        given = input_crs if isinstance(input_crs, pyproj.CRS) else parse_crs(input_crs, "--input-crs")
+        given = input_crs if isinstance(input_crs, pyproj.CRS) else parse_crs(input_crs, "input_crs")
         if declared is not None and not declared.equals(given, ignore_axis_order=True):
             warnings.warn(
-                f"{path}: --input-crs {given.name!r} overrides the file's CRS {declared.name!r}",
-                AreamcWarning,
+                AreamcWarning(f"{path}: {{param}} {given.name!r} overrides the file's CRS {declared.name!r}",
+                              param="input_crs"),
                 stacklevel=4,
             )
         return given
     if declared is None:
-        raise CRSError(f"{path}: the file declares no CRS; state it with --input-crs (e.g. EPSG:4326)")
+        raise CRSError(f"{path}: the file declares no CRS; state it with {{param}} (e.g. EPSG:4326)", param="input_crs")
     return declared
 
 

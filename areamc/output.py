@@ -162,7 +162,7 @@ def render(
         document["units"] = units
         document["results"] = converted
         return json.dumps(_json_safe(document), indent=2) + "\n"
-    raise OptionError(f"--format: unknown format {fmt!r}; choose one of {', '.join(FORMATS)}")
+    raise OptionError(f"{{param}}: unknown format {fmt!r}; choose one of {', '.join(FORMATS)}", param="fmt")
 
 
 def check_output_path(path: str | None, inputs: Iterable[str] = ()) -> None:
@@ -171,11 +171,11 @@ def check_output_path(path: str | None, inputs: Iterable[str] = ()) -> None:
         return
     folder = os.path.dirname(os.path.abspath(path))
     if not os.path.isdir(folder):
-        raise OptionError(f"--output {path}: folder {folder} does not exist")
+        raise OptionError(f"{{param}} {path}: folder {folder} does not exist", param="output")
     target = os.path.abspath(path)
     for source in inputs:
         if os.path.exists(source) and os.path.abspath(source) == target:
-            raise OptionError(f"--output {path}: would overwrite the input file")
+            raise OptionError(f"{{param}} {path}: would overwrite the input file", param="output")
 
 
 def write_text(text: str, path: str) -> None:

@@ -4,7 +4,7 @@ Candidate pairs come from a shapely ``STRtree`` on the zones' bounding boxes;
 pairs whose boxes do not meet are never sampled, and a pair is sampled only
 inside the intersection of its two boxes.  The multiplicity profile (area
 covered by exactly k and by at least k zones) is sampled in the bounding box
-of all zones, with each point's count taken from a :class:`~areamc.classify.ZoneIndex`.
+of all zones, with each point's count taken from a :class:`~areamc.classify.GridIndex`.
 All areas are m² of the equal-area plane.
 """
 
@@ -16,13 +16,25 @@ from dataclasses import asdict, dataclass
 import numpy as np
 import shapely
 
-from .classify import ZoneIndex
-from .estimate import DEFAULT_CHUNK, AreaEstimate, StopRule, area_target, check_confidence, hit_or_miss
-from .exact import FLAG_Z, at_least, deviation, intersection_areas, multiplicity_areas, planar_area
-from .project import EqualAreaPlane, ProjectedLayer
-from .sampling import Box, UniformSampler, child_seed, make_seed
+from .checks import flagged
+from .classify import GridIndex
+from .engine import DEFAULT_CHUNK, hit_or_miss
+from .estimate import AreaEstimate, area_precision
+from .exact import at_least, intersection_areas, multiplicity_areas, planar_area
+from .intervals import check_confidence
+from .project import ProjectedLayer, transform_geometry, transformer
+from .errors import OptionError
+from .runinfo import RunInfo
+from .samplers import Box, SamplerFactory, make_sampler, sampler_name
+from .seeds import child_seed, job_root, make_seed
+from .stopping import StopRule, Stopper
 
-__all__ = ["OverlapRow", "MultiplicityRow", "OverlapReport", "candidate_pairs", "estimate_overlaps"]
+__all__ = ["OverlapRow", "MultiplicityRow", "OverlapReport", "candidate_pairs", "estimate_overlaps", "overlap_geometries"]
+
+#: Exact profile status tokens.
+COMPUTED = "computed"
+NOT_ASKED = "not-asked"
+TIMED_OUT = "timed-out"
 
 _PAIR_STREAM = 0
 _PROFILE_STREAM = 1
@@ -35,7 +47,7 @@ class OverlapRow:
     Areas in m² of the equal-area plane.  `share_a` and `share_b` are the
     estimate divided by the exact planar area of each zone; `exact_planar` is
     shapely's intersection area and `z` the estimate's deviation from it in
-    standard errors.
+    standard errors (binomial mid-p score, :mod:`areamc.checks`).
     """
 
     id_a: str
@@ -52,6 +64,8 @@ class OverlapRow:
     exact_planar: float | None
     z: float | None
     flagged: bool
+    stop_reason: str
+    pilot_points: int
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -59,19 +73,24 @@ class OverlapRow:
 
 @dataclass(frozen=True)
 class MultiplicityRow:
-    """Area (m²) covered by exactly `k` zones and by at least `k` zones, with intervals."""
+    """Area (m² of the plane) covered by exactly `k` zones and by at least `k` zones, with intervals.
+
+    `z` is the deviation of the at-least-k area from its exact value
+    (binomial mid-p score); `flagged` is ``|z| > 4``.
+    """
 
     k: int
-    exactly: float
-    exactly_ci_low: float
-    exactly_ci_high: float
-    at_least: float
-    at_least_stderr: float
-    at_least_ci_low: float
-    at_least_ci_high: float
-    exact_exactly: float | None
-    exact_at_least: float | None
+    area_exactly: float
+    area_exactly_ci_low: float
+    area_exactly_ci_high: float
+    area_at_least: float
+    area_at_least_stderr: float
+    area_at_least_ci_low: float
+    area_at_least_ci_high: float
+    exact_area_exactly: float | None
+    exact_area_at_least: float | None
     z: float | None
+    flagged: bool
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -85,19 +104,11 @@ class OverlapReport:
     pairs: tuple[tuple[int, int], ...]
     multiplicity: tuple[MultiplicityRow, ...]
     candidates: int
-    plane: EqualAreaPlane
-    confidence: float
-    seed_entropy: int
+    run: RunInfo
     exact_profile: str
 
     def metadata(self) -> dict:
-        return {
-            "equal_area_crs": self.plane.to_dict(),
-            "confidence": self.confidence,
-            "seed": self.seed_entropy,
-            "candidate_pairs": self.candidates,
-            "exact_multiplicity": self.exact_profile,
-        }
+        return {**self.run.to_dict(), "candidate_pairs": self.candidates, "exact_multiplicity": self.exact_profile}
 
 
 def candidate_pairs(a: ProjectedLayer, b: ProjectedLayer | None = None) -> np.ndarray:
@@ -126,11 +137,12 @@ def estimate_overlaps(
     stop: StopRule | None = None,
     confidence: float = 0.95,
     seed: int | np.random.SeedSequence | None = None,
+    sampler: str | SamplerFactory = "uniform",
     chunk: int = DEFAULT_CHUNK,
     min_share: float = 0.0,
     exact: bool = True,
     profile: bool = True,
-    exact_budget_s: float = 10.0,
+    exact_time_limit_s: float = 10.0,
 ) -> OverlapReport:
     """Estimate every pairwise overlap and (for one layer) the multiplicity profile.
 
@@ -140,14 +152,19 @@ def estimate_overlaps(
         Zones in one equal-area plane (metres); with `b` only cross pairs.
     stop : StopRule
         Points per pair (and for the profile), or a precision target.
+    seed : int or SeedSequence, optional
+        Root seed; pair ``(i, j)`` samples from the stream keyed
+        ``("overlap", 0, i, j)``, the profile from ``("overlap", 1)``.
+    sampler : str or sampler class
+        See :func:`~areamc.samplers.make_sampler`.
     min_share : float
-        Omit pairs whose estimated overlap is below this share of both zones.
+        Omit pairs whose estimated overlap is below this share of both zones (0..1).
     exact : bool
         Compute shapely's exact intersection areas (and the exact profile).
     profile : bool
         Estimate the area covered by exactly / at least k zones.
-    exact_budget_s : float
-        Seconds allowed for the exact profile; beyond, it is "not computed".
+    exact_time_limit_s : float
+        Seconds allowed for the exact profile; beyond, its status is "timed-out".
 
     Returns
     -------
@@ -156,7 +173,10 @@ def estimate_overlaps(
     """
     stop = stop or StopRule()
     confidence = check_confidence(confidence)
+    if not 0.0 <= min_share <= 1.0:
+        raise OptionError(f"{{param}}: must lie in [0, 1], got {min_share!r}", param="min_share")
     root = make_seed(seed)
+    streams = job_root(root, "overlap")
     other = a if b is None else b
     pairs = candidate_pairs(a, b)
     area_a = planar_area(a.planar)
@@ -172,11 +192,9 @@ def estimate_overlaps(
         if box is None:
             continue
         run = hit_or_miss(
-            box,
+            make_sampler(sampler, child_seed(streams, _PAIR_STREAM, int(i), int(j)), box),
             lambda x, y, ga=ga, gb=gb: shapely.contains_xy(ga, x, y) & shapely.contains_xy(gb, x, y),
-            UniformSampler(child_seed(root, _PAIR_STREAM, int(i), int(j))),
-            budget=stop.budget,
-            done=area_target(stop, box.area, confidence),
+            Stopper(stop, precision=area_precision(box.area, confidence)),
             chunk=chunk,
         )
         est = run.estimate(0, confidence)
@@ -184,41 +202,40 @@ def estimate_overlaps(
         if max(share_a, share_b) < min_share:
             continue
         planar = float(exact_pairs[n]) if exact_pairs is not None else None
-        z = deviation(est.estimate, planar, est.check_scale) if planar is not None else None
+        z = est.deviation(planar) if planar is not None else None
         rows.append(
             OverlapRow(
                 id_a=a.ids[i], id_b=other.ids[j], estimate=est.estimate, stderr=est.stderr,
                 ci_low=est.ci_low, ci_high=est.ci_high, share_a=share_a, share_b=share_b,
                 points=est.points, hits=est.hits, box_area=est.box_area, exact_planar=planar,
-                z=z, flagged=bool(z is not None and abs(z) > FLAG_Z),
+                z=z, flagged=flagged(z), stop_reason=run.reason, pilot_points=run.pilot_points,
             )
         )
         kept.append((int(i), int(j)))
     multiplicity: tuple[MultiplicityRow, ...] = ()
-    exact_profile = "not asked"
+    exact_profile = NOT_ASKED
     if profile and b is None:
-        multiplicity, exact_profile = _profile(a, stop, confidence, root, chunk, exact, exact_budget_s)
-    return OverlapReport(tuple(rows), tuple(kept), multiplicity, int(pairs.shape[1]), a.plane, confidence, int(root.entropy), exact_profile)
+        multiplicity, exact_profile = _profile(a, stop, confidence, streams, sampler, chunk, exact, exact_time_limit_s)
+    info = RunInfo("overlap", a.plane, confidence, int(root.entropy), sampler_name(sampler), stop, a.densify_m)
+    return OverlapReport(tuple(rows), tuple(kept), multiplicity, int(pairs.shape[1]), info, exact_profile)
 
 
-def _profile(layer, stop, confidence, root, chunk, exact, budget_s):
+def _profile(layer, stop, confidence, streams, sampler, chunk, exact, limit_s):
     """Area covered by exactly / at least k zones, sampled in the layer's bounding box."""
     box = Box.of(shapely.total_bounds(layer.planar))
-    index = ZoneIndex(layer.planar, box)
+    index = GridIndex(layer.planar, box)
     top = max(index.max_count, 1)
     ks = np.arange(1, top + 1)
     run = hit_or_miss(
-        box,
+        make_sampler(sampler, child_seed(streams, _PROFILE_STREAM), box),
         lambda x, y: index.counts(x, y)[:, None] >= ks[None, :],
-        UniformSampler(child_seed(root, _PROFILE_STREAM)),
-        budget=stop.budget,
-        done=area_target(stop, box.area, confidence),
+        Stopper(stop, precision=area_precision(box.area, confidence)),
         chunk=chunk,
     )
-    exact_k, status = None, "not asked"
+    exact_k, status = None, NOT_ASKED
     if exact:
-        exact_k = multiplicity_areas(layer.planar, deadline=time.monotonic() + budget_s)
-        status = "computed" if exact_k is not None else f"not computed (over {budget_s:g} s)"
+        exact_k = multiplicity_areas(layer.planar, deadline=time.monotonic() + limit_s)
+        status = COMPUTED if exact_k is not None else TIMED_OUT
     hits = list(run.hits) + [0]
     rows = []
     for n, k in enumerate(ks):
@@ -227,14 +244,32 @@ def _profile(layer, stop, confidence, root, chunk, exact, budget_s):
         least = run.estimate(n, confidence)
         only = AreaEstimate.from_counts(hits[n] - hits[n + 1], run.points, box.area, confidence)
         exact_least = at_least(exact_k, int(k)) if exact_k is not None else None
+        z = least.deviation(exact_least) if exact_least is not None else None
         rows.append(
             MultiplicityRow(
-                k=int(k), exactly=only.estimate, exactly_ci_low=only.ci_low, exactly_ci_high=only.ci_high,
-                at_least=least.estimate, at_least_stderr=least.stderr, at_least_ci_low=least.ci_low,
-                at_least_ci_high=least.ci_high,
-                exact_exactly=exact_k.get(int(k), 0.0) if exact_k is not None else None,
-                exact_at_least=exact_least,
-                z=deviation(least.estimate, exact_least, least.check_scale) if exact_least is not None else None,
+                k=int(k), area_exactly=only.estimate, area_exactly_ci_low=only.ci_low,
+                area_exactly_ci_high=only.ci_high, area_at_least=least.estimate,
+                area_at_least_stderr=least.stderr, area_at_least_ci_low=least.ci_low,
+                area_at_least_ci_high=least.ci_high,
+                exact_area_exactly=exact_k.get(int(k), 0.0) if exact_k is not None else None,
+                exact_area_at_least=exact_least, z=z, flagged=flagged(z),
             )
         )
     return tuple(rows), status
+
+
+def overlap_geometries(report: OverlapReport, a: ProjectedLayer, b: ProjectedLayer | None = None,
+                       crs=None) -> np.ndarray:
+    """Intersection geometries of the reported pairs, in `crs` (default: the first layer's own CRS).
+
+    `a` and `b` are the projected layers the report was made from (plane
+    metres); the intersections are formed in the plane and transformed back.
+    """
+    other = a if b is None else b
+    target = a.source.crs if crs is None else crs
+    back = transformer(a.plane.crs, target)
+    out = []
+    for row, (i, j) in zip(report.rows, report.pairs):
+        inter = shapely.intersection(a.planar[i], other.planar[j])
+        out.append(transform_geometry(inter, back, f"overlap {row.id_a} x {row.id_b}"))
+    return np.array(out, dtype=object)

@@ -21,11 +21,11 @@ import numpy as np
 import pyproj
 import shapely
 
-from .errors import CRSError, NotEqualAreaError
-from .load import AreamcWarning, Layer, parse_crs
+from .errors import AreamcWarning, CRSError, NotEqualAreaError
+from .geodesy import WGS84, quadrangle_area
+from .load import Layer, parse_crs
 
 __all__ = [
-    "WGS84",
     "LONLAT",
     "EqualAreaPlane",
     "ProjectedLayer",
@@ -38,14 +38,10 @@ __all__ = [
     "resolve_plane",
     "project_layer",
     "project_layers",
-    "quadrangle_area",
-    "authalic_q",
     "DEFAULT_DENSIFY_M",
     "MAX_AREA_DISTORTION",
 ]
 
-#: WGS84 ellipsoid: a = 6 378 137 m, 1/f = 298.257 223 563 (NIMA TR8350.2, Table 3.1).
-WGS84 = pyproj.Geod(ellps="WGS84")
 #: Geographic WGS84 with (longitude, latitude) axis order in degrees.
 LONLAT = pyproj.CRS.from_epsg(4326)
 
@@ -161,7 +157,7 @@ def densify(geoms: np.ndarray, crs: pyproj.CRS, step_m: float = DEFAULT_DENSIFY_
     the source coordinates, so reprojection bends them as the source intends.
     """
     if not step_m > 0:
-        raise CRSError(f"--densify: step must be positive, got {step_m}")
+        raise CRSError(f"{{param}}: step must be positive, got {step_m}", param="densify_m")
     return shapely.segmentize(geoms, _step_in_crs_units(crs, step_m))
 
 
@@ -192,26 +188,6 @@ def choose_plane(bounds: tuple[float, float, float, float]) -> pyproj.CRS:
             "+datum=WGS84 +units=m +no_defs +type=crs"
         )
     return pyproj.CRS.from_user_input(_GLOBAL_PLANE)
-
-
-def authalic_q(phi: np.ndarray, e: float) -> np.ndarray:
-    """Snyder (1987) eq. 3-12, q(φ) for latitude φ in radians and eccentricity e; the log term as atanh."""
-    s = np.sin(phi)
-    return (1 - e * e) * (s / (1 - (e * s) ** 2) + np.arctanh(e * s) / e)
-
-
-def quadrangle_area(lon1, lat1, lon2, lat2, *, a: float = 6378137.0, rf: float = 298.257223563):
-    """Area in m² of the cell between two meridians and two parallels on an ellipsoid.
-
-    ``A = (a²/2) Δλ (q(φ2) − q(φ1))`` (Snyder 1987, USGS Professional Paper
-    1395, eq. 3-12 for ``q``); defaults are WGS84 (NIMA TR8350.2).  Degrees in,
-    square metres out; vectorised.
-    """
-    f = 1 / rf
-    e = math.sqrt(f * (2 - f))
-    dlam = np.radians(np.asarray(lon2, float) - np.asarray(lon1, float))
-    dq = authalic_q(np.radians(np.asarray(lat2, float)), e) - authalic_q(np.radians(np.asarray(lat1, float)), e)
-    return np.abs(a * a / 2 * dlam * dq)
 
 
 def measure_area_distortion(
@@ -278,7 +254,7 @@ def _inset(low: float, high: float, margin: float) -> tuple[float, float]:
 
 
 def resolve_plane(
-    bounds: tuple[float, float, float, float], requested: str | pyproj.CRS | None = None
+    bounds: tuple[float, float, float, float], crs: str | pyproj.CRS | None = None
 ) -> EqualAreaPlane:
     """Return the plane to use: the requested one if it is equal-area, else a chosen one.
 
@@ -286,7 +262,7 @@ def resolve_plane(
     ----------
     bounds : (west, south, east, north)
         The data's extent in WGS84 degrees.
-    requested : str or pyproj.CRS, optional
+    crs : str or pyproj.CRS, optional
         EPSG code, PROJ string or WKT given by the user.
 
     Raises
@@ -295,26 +271,27 @@ def resolve_plane(
         When the requested CRS is geographic, not in metres, or its measured
         area distortion over `bounds` exceeds :data:`MAX_AREA_DISTORTION`.
     """
-    if requested is None:
-        crs = choose_plane(bounds)
-        distortion, _, _ = measure_area_distortion(crs, bounds)
-        return EqualAreaPlane(crs, _label(crs), True, distortion)
-    crs = requested if isinstance(requested, pyproj.CRS) else parse_crs(str(requested), "--crs")
+    if crs is None:
+        chosen = choose_plane(bounds)
+        distortion, _, _ = measure_area_distortion(chosen, bounds)
+        return EqualAreaPlane(chosen, _label(chosen), True, distortion)
+    crs = crs if isinstance(crs, pyproj.CRS) else parse_crs(str(crs), "crs")
     name = _label(crs)
     if crs.is_geographic:
         raise NotEqualAreaError(
-            f"--crs {name}: a geographic CRS (degrees) is not a plane; name an equal-area "
-            "projected CRS such as EPSG:6933, or leave --crs out to choose one from the data"
+            f"{{param}} {name}: a geographic CRS (degrees) is not a plane; name an equal-area "
+            "projected CRS such as EPSG:6933, or name none to have one chosen from the data", param="crs"
         )
     unit = crs.axis_info[0].unit_name if crs.axis_info else "metre"
     if unit not in ("metre", "meter"):
-        raise NotEqualAreaError(f"--crs {name}: its unit is {unit!r}; areamc needs a plane in metres")
+        raise NotEqualAreaError(f"{{param}} {name}: its unit is {unit!r}; areamc needs a plane in metres", param="crs")
     distortion, lon, lat = measure_area_distortion(crs, bounds)
     if not distortion <= MAX_AREA_DISTORTION:
         off = "cannot project the data" if math.isinf(distortion) else f"areas off by up to {distortion:.2g} relative"
         raise NotEqualAreaError(
-            f"--crs {name}: not equal-area over the data's extent ({off}, near "
-            f"{lon:.3f}, {lat:.3f}); name an equal-area CRS such as EPSG:6933 or leave --crs out"
+            f"{{param}} {name}: not equal-area over the data's extent ({off}, near "
+            f"{lon:.3f}, {lat:.3f}); name an equal-area CRS such as EPSG:6933, or name none to have one chosen "
+            "from the data", param="crs"
         )
     return EqualAreaPlane(crs, name, False, distortion)
 

@@ -24,7 +24,16 @@ import numpy as np
 
 from .errors import OptionError
 
-__all__ = ["MEETS", "FALLS_SHORT", "UNDECIDED", "log_mixture", "confidence_sequence", "verdict", "check_claim"]
+__all__ = [
+    "MEETS",
+    "FALLS_SHORT",
+    "UNDECIDED",
+    "log_mixture",
+    "confidence_sequence",
+    "verdict",
+    "check_claim",
+    "claim_decided",
+]
 
 MEETS = "meets"
 FALLS_SHORT = "falls short"
@@ -39,9 +48,9 @@ def check_claim(claim: float) -> float:
     try:
         value = float(claim)
     except (TypeError, ValueError):
-        raise OptionError(f"--claim: expected a share in (0, 1], got {claim!r}") from None
+        raise OptionError(f"{{param}}: expected a share in (0, 1], got {claim!r}", param="claim") from None
     if not 0.0 < value <= 1.0:
-        raise OptionError(f"--claim: must lie in (0, 1], got {claim!r}")
+        raise OptionError(f"{{param}}: must lie in (0, 1], got {claim!r}", param="claim")
     return value
 
 
@@ -109,3 +118,19 @@ def verdict(hits: int, n: int, claim: float, confidence: float, prior: tuple[flo
     if float(log_mixture(hits, n, claim, prior)) < level:
         return UNDECIDED
     return MEETS if hits / n > claim else FALLS_SHORT
+
+
+def claim_decided(claim: float, confidence: float):
+    """Stop test for claim checks: column 0 counts the points in a region, columns 1.. those also covered.
+
+    True once every column's verdict on "share ≥ claim" is decided; valid at
+    that stopping time by the confidence sequence's construction.
+    """
+
+    def decided(sums: np.ndarray, _sumsq: np.ndarray, _points: int) -> bool:
+        n = int(sums[0])
+        if n == 0:
+            return False
+        return all(verdict(int(h), n, claim, confidence) != UNDECIDED for h in sums[1:])
+
+    return decided

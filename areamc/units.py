@@ -37,14 +37,14 @@ def area_factor(unit: str) -> float:
         return AREA_UNITS[key]
     except KeyError:
         raise OptionError(
-            f"--units: unknown area unit {unit!r}; choose one of {', '.join(AREA_UNITS)}"
+            f"{{param}}: unknown area unit {unit!r}; choose one of {', '.join(AREA_UNITS)}", param="units"
         ) from None
 
 
 _DISTANCE_RE = re.compile(r"^\s*([-+0-9.eE]+)\s*([a-zA-Z]*)\s*$")
 
 
-def parse_distance(text: str, option: str = "--radius") -> float:
+def parse_distance(text: str, param: str = "radius_m") -> float:
     """Parse a distance such as ``"5km"``, ``"2.5 mi"`` or ``"800m"`` into metres.
 
     A bare number is read as metres.  Raises :class:`OptionError` for a
@@ -52,17 +52,17 @@ def parse_distance(text: str, option: str = "--radius") -> float:
     """
     match = _DISTANCE_RE.match(str(text))
     if not match:
-        raise OptionError(f"{option}: cannot read distance {text!r}; write e.g. 5km, 800m or 3mi")
+        raise OptionError(f"{{param}}: cannot read distance {text!r}; write e.g. 5km, 800m or 3mi", param=param)
     number, unit = match.groups()
     unit = unit.lower() or "m"
     if unit not in DISTANCE_UNITS:
         raise OptionError(
-            f"{option}: unknown distance unit {unit!r}; choose one of {', '.join(DISTANCE_UNITS)}"
+            f"{{param}}: unknown distance unit {unit!r}; choose one of {', '.join(DISTANCE_UNITS)}", param=param
         )
     try:
         value = float(number)
     except ValueError:
-        raise OptionError(f"{option}: cannot read distance {text!r}") from None
+        raise OptionError(f"{{param}}: cannot read distance {text!r}", param=param) from None
     if not value > 0 or value == float("inf"):
-        raise OptionError(f"{option}: distance must be positive and finite, got {text!r}")
+        raise OptionError(f"{{param}}: distance must be positive and finite, got {text!r}", param=param)
     return value * DISTANCE_UNITS[unit]

@@ -53,8 +53,13 @@ def _field_type(values) -> str:
     return "str"
 
 
-def _value(v):
-    kind = _kind(v) if v is not None else None
+def _value(v, field_type: str):
+    """`v` as the field's type holds it: a field that mixes text and numbers stores every value as text."""
+    if v is None:
+        return None
+    if field_type == "str":
+        return v if isinstance(v, str) else str(v)
+    kind = _kind(v)
     if kind in ("bool", "int"):
         return int(v)
     if kind == "float":
@@ -70,7 +75,7 @@ def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, lay
     """
     driver = vector_driver(path)
     if driver is None:
-        raise OptionError(f"--output {path}: not a GeoPackage (.gpkg) or GeoJSON (.geojson) path")
+        raise OptionError(f"{{param}} {path}: not a GeoPackage (.gpkg) or GeoJSON (.geojson) path", param="output")
     fields = list(rows[0]) if rows else []
     types = {f: _field_type([r.get(f) for r in rows]) for f in fields}
     schema = {"geometry": "Unknown", "properties": {f: types[f] for f in fields}}
@@ -82,7 +87,7 @@ def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, lay
     try:
         with fiona.open(tmp, "w", driver=driver, schema=schema, crs=FionaCRS.from_wkt(crs.to_wkt()), layer=layer) as dst:
             for geom, row in zip(geometries, rows):
-                props = {f: _value(v) for f, v in row.items()}
+                props = {f: _value(v, types[f]) for f, v in row.items()}
                 dst.write({"geometry": shapely.geometry.mapping(geom), "properties": props})
         os.replace(tmp, path)
     except BaseException:

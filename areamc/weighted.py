@@ -2,12 +2,13 @@
 
 Two estimators, chosen per region:
 
-* **Importance sampling** (when the source offers a :class:`~areamc.density.Proposal`):
-  points are drawn with density ``d(x)/T`` over the blocks or cells that meet
-  the region, ``T`` their total count.  The integral of ``d`` over the region
-  is ``T x P(x in region)`` and the share of the region's population in a
-  covered set is ``P(covered | in region)``: both binomial proportions, so
-  Wilson intervals (and confidence sequences) apply exactly as for areas.
+* **Importance sampling** (when the region's density view offers a
+  :class:`~areamc.density.Proposal`): points are drawn with density
+  ``d(x)/T`` over the blocks or cells that meet the region, ``T`` their total
+  count.  The integral of ``d`` over the region is ``T x P(x in region)`` and
+  the share of the region's population in a covered set is
+  ``P(covered | in region)``: both binomial proportions, so Wilson intervals
+  (and confidence sequences) apply exactly as for areas.
 * **Uniform sampling** in the region's bounding box ``B``: scores
   ``b = d(x) 1[x in region]`` and ``a = b 1[covered]``; the integral is
   ``|B| mean(b)`` with a normal interval from the sample variance, and the
@@ -24,14 +25,24 @@ from typing import Callable
 
 import numpy as np
 
-from .density import DensitySource
-from .estimate import AreaEstimate, TotalEstimate, accumulate, mean_interval, wilson_interval, z_for
-from .sampling import Box, UniformSampler, child_seed, scale_to_box
+from .density import DensityView
+from .engine import DEFAULT_CHUNK, accumulate
+from .estimate import AreaEstimate, TotalEstimate, mean_estimate
+from .intervals import wilson_interval, z_for
+from .samplers import Box, SamplerFactory, make_sampler
+from .seeds import child_seed
+from .sequential import claim_decided
+from .stopping import StopRule, Stopper
 
-__all__ = ["WeightedRun", "weighted_run", "IMPORTANCE", "UNIFORM"]
+__all__ = ["WeightedRun", "weighted_run", "IMPORTANCE", "UNIFORM", "NONE", "TOTAL", "SHARES"]
 
 IMPORTANCE = "importance"
 UNIFORM = "uniform"
+#: Method of a region with no density near it.
+NONE = "none"
+#: What a precision target applies to: the total (column 0), or the shares (columns 1..).
+TOTAL = "total"
+SHARES = "shares"
 
 
 @dataclass(frozen=True)
@@ -49,13 +60,14 @@ class WeightedRun:
     scale: float
     sums: np.ndarray
     sumsq: np.ndarray
-    stopped_early: bool
+    reason: str = "budget"
+    pilot_points: int = 0
 
     def total(self, confidence: float) -> AreaEstimate | TotalEstimate:
         """The integral of the density over the region (counts, e.g. persons)."""
         if self.method == IMPORTANCE:
             return AreaEstimate.from_counts(int(self.sums[0]), self.points, self.scale, confidence)
-        return mean_interval(float(self.sums[0]), float(self.sumsq[0]), self.points, self.scale, confidence)
+        return mean_estimate(float(self.sums[0]), float(self.sumsq[0]), self.points, self.scale, confidence)
 
     def share(self, column: int, confidence: float) -> tuple[float, float, float, float]:
         """(share, stderr, low, high) of the region's weight falling in a covered set."""
@@ -74,72 +86,81 @@ class WeightedRun:
         return r, se, max(0.0, r - z * se), min(1.0, r + z * se)
 
 
+def _precision(method: str, scale: float, target: str, confidence: float):
+    """Precision measure of a weighted run: the total's half-width, or every share's."""
+
+    def measure(sums: np.ndarray, sumsq: np.ndarray, points: int):
+        if points < 2 or sums[0] <= 0:
+            return [(math.inf, 0.0)]
+        run = WeightedRun(method, points, scale, sums, sumsq)
+        if target == TOTAL:
+            est = run.total(confidence)
+            return [(est.half_width, est.estimate)]
+        return [((high - low) / 2, share) for share, _, low, high in
+                (run.share(c, confidence) for c in range(1, len(sums)))]
+
+    return measure
+
+
 Classify = Callable[[np.ndarray, np.ndarray], np.ndarray]
 
 
 def weighted_run(
-    region,
+    view: DensityView,
     classify: Classify,
-    source: DensitySource,
-    root: np.random.SeedSequence,
-    key: tuple[int, ...],
+    seed: np.random.SeedSequence,
     *,
-    budget: int,
-    chunk: int,
+    stop: StopRule,
+    confidence: float,
+    target: str = TOTAL,
+    claim: float | None = None,
+    sampler: str | SamplerFactory = "uniform",
+    chunk: int = DEFAULT_CHUNK,
     importance: bool = True,
-    done: Callable[[str, float, np.ndarray, np.ndarray, int], bool] | None = None,
 ) -> WeightedRun | None:
-    """Sample `region` weighted by `source`'s density.
+    """Sample the region of `view` weighted by its density.
 
     Parameters
     ----------
-    region : shapely geometry
-        In the equal-area plane (metres); ``source.prepare(region)`` must have been called.
+    view : DensityView
+        The density source's view of the region (plane metres; per m²).
     classify : callable
         ``classify(x, y)`` returns bools ``(n, m)``: column 0 "in the region",
         the rest covered sets.
-    root, key
-        Seed root and the stream key of this region; the proposal uses the
-        children ``key + (0,)`` and ``key + (1,)``, the uniform path ``key + (2,)``.
+    seed : SeedSequence
+        This region's stream: the importance sampler draws from it, the
+        uniform sampler from its child ``(2,)``.
+    stop : StopRule
+        Points, or a precision target on the `target` (``"total"`` or ``"shares"``).
+    claim : float, optional
+        With importance sampling, stop once every share's claim verdict is decided.
+    sampler : str or sampler class
+        See :func:`~areamc.samplers.make_sampler`.
     importance : bool
-        Use the source's importance sampler when it has one.
-    done : callable, optional
-        ``done(method, scale, sums, sumsq, points)`` to stop early.
+        Use the view's importance sampler when it has one.
 
     Returns
     -------
     WeightedRun, or None when the density is zero on every unit near the region.
     """
-    proposal = source.proposal(region) if importance else None
+    proposal = view.proposal() if importance else None
     if proposal is not None and proposal.total <= 0:
         return None  # the source has no positive count near the region: density 0 here
     if proposal is not None:
-        first = UniformSampler(child_seed(root, *key, 0))
-        second = UniformSampler(child_seed(root, *key, 1))
-
-        def draw(n):
-            return proposal.draw(np.hstack([first.random(n), second.random(n)]))
-
+        points = make_sampler(sampler, seed, proposal)
         scale, method = proposal.total, IMPORTANCE
         evaluate = classify
     else:
-        box = Box.of(region.bounds)
-        sampler = UniformSampler(child_seed(root, *key, 2))
-
-        def draw(n):
-            return scale_to_box(sampler.random(n), box)
+        box = Box.of(view.region.bounds)
+        points = make_sampler(sampler, child_seed(seed, 2), box)
 
         def evaluate(x, y):
             flags = np.asarray(classify(x, y), dtype=bool)
-            d = source.density(x, y)
+            d = view.density(x, y)
             return flags * d[:, None]
 
         scale, method = box.area, UNIFORM
-    run = accumulate(
-        draw,
-        evaluate,
-        budget=budget,
-        chunk=chunk,
-        done=None if done is None else (lambda sums, sumsq, n: done(method, scale, sums, sumsq, n)),
-    )
-    return WeightedRun(method, run.points, scale, run.sums, run.sumsq, run.stopped_early)
+    decided = claim_decided(claim, confidence) if claim is not None and method == IMPORTANCE else None
+    stopper = Stopper(stop, precision=_precision(method, scale, target, confidence), decided=decided)
+    run = accumulate(points.random, evaluate, stopper, chunk=chunk)
+    return WeightedRun(method, run.points, scale, run.sums, run.sumsq, run.reason, run.pilot_points)

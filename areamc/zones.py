@@ -14,9 +14,10 @@ import warnings
 import numpy as np
 import shapely
 
-from .errors import LayerError, OptionError
-from .load import AreamcWarning, Layer, read_layer
-from .project import LONLAT, WGS84, transformer, transform_geometry
+from .errors import AreamcWarning, LayerError, OptionError
+from .load import Layer, read_layer
+from .geodesy import AUTHALIC_RADIUS_M, WGS84
+from .project import LONLAT, transformer, transform_geometry
 
 __all__ = ["geodesic_circle", "zones_from_points", "read_zones", "DEFAULT_VERTICES"]
 
@@ -42,7 +43,7 @@ def geodesic_circle(
     azimuths = np.linspace(0.0, 360.0, vertices, endpoint=False)
     lons, lats, _ = geod.fwd(np.full(vertices, lon), np.full(vertices, lat), azimuths, np.full(vertices, radius_m))
     lons = np.asarray(lons)
-    if np.ptp(lons) > 180 or abs(lat) + math.degrees(radius_m / 6_371_007.0) >= 90:
+    if np.ptp(lons) > 180 or abs(lat) + math.degrees(radius_m / AUTHALIC_RADIUS_M) >= 90:
         raise OptionError(
             f"a circle of {radius_m:g} m around ({lon:g}, {lat:g}) crosses the antimeridian or a pole; not supported"
         )
@@ -77,13 +78,13 @@ def zones_from_points(
     """
     if (radius_m is None) == (radius_field is None):
         raise OptionError(
-            f"{layer.source}: holds points; give --radius DISTANCE or --radius-field FIELD (one of them)"
+            f"{layer.source}: holds points; give {{radius_m}} or {{radius_field}} (one of them)", params=("radius_m", "radius_field")
         )
     if vertices < 8:
-        raise OptionError(f"--circle-vertices: at least 8, got {vertices}")
+        raise OptionError(f"{{param}}: at least 8, got {vertices}", param="vertices")
     if radius_field is not None and layer.properties and radius_field not in layer.properties[0]:
         fields = ", ".join(layer.properties[0]) or "(none)"
-        raise LayerError(f"{layer.source}: --radius-field {radius_field!r} is not a field; fields: {fields}")
+        raise LayerError(f"{layer.source}: {{param}} {radius_field!r} is not a field; fields: {fields}", param="radius_field")
     to_lonlat = transformer(layer.crs, LONLAT)
     circles = []
     for fid, geom, props in zip(layer.ids, layer.geometries, layer.properties):
@@ -112,8 +113,8 @@ def _radius(value, layer: Layer, fid: str, field: str) -> float:
         radius = math.nan
     if value is None or not math.isfinite(radius) or radius <= 0:
         raise LayerError(
-            f"{layer.source}: feature {fid} has radius {value!r} in --radius-field {field!r}; "
-            "radii must be positive numbers of metres"
+            f"{layer.source}: feature {fid} has radius {value!r} in {{param}} {field!r}; "
+            "radii must be positive numbers of metres", param="radius_field"
         )
     return radius
 
@@ -137,5 +138,6 @@ def read_zones(
     if zones.kind == "point":
         return zones_from_points(zones, radius_m=radius_m, radius_field=radius_field, vertices=vertices)
     if radius_m is not None or radius_field is not None:
-        warnings.warn(f"{zones.source}: holds polygons; --radius/--radius-field ignored", AreamcWarning, stacklevel=2)
+        warnings.warn(AreamcWarning(f"{zones.source}: holds polygons; {{radius_m}}/{{radius_field}} ignored",
+                                    params=("radius_m", "radius_field")), stacklevel=2)
     return zones

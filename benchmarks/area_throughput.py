@@ -17,7 +17,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from areamc.area import estimate_areas  # noqa: E402
-from areamc.estimate import StopRule  # noqa: E402
+from areamc.stopping import StopRule  # noqa: E402
 from areamc.load import read_layer  # noqa: E402
 from areamc.project import project_layer  # noqa: E402
 

@@ -25,7 +25,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from areamc.estimate import wilson_interval  # noqa: E402
+from areamc.intervals import wilson_interval  # noqa: E402
 from areamc.sequential import MEETS, UNDECIDED, verdict  # noqa: E402
 
 CLAIM, CONFIDENCE, BATCH, MAX_POINTS, REPLICATES = 0.9, 0.95, 50, 5000, 4000

@@ -28,10 +28,11 @@ import shapely
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from areamc.classify import inside  # noqa: E402
-from areamc.coverage import region_classifier  # noqa: E402
-from areamc.estimate import hit_or_miss  # noqa: E402
-from areamc.sampling import Box, UniformSampler, make_seed, scale_to_box  # noqa: E402
+from areamc.classify import inside, region_classifier  # noqa: E402
+from areamc.engine import hit_or_miss  # noqa: E402
+from areamc.samplers import Box, UniformSampler  # noqa: E402
+from areamc.seeds import make_seed  # noqa: E402
+from areamc.stopping import StopRule, Stopper  # noqa: E402
 
 N_POINTS = 1 << 20
 CHUNK = 1 << 16
@@ -55,8 +56,8 @@ def zones(n: int, rng: np.random.Generator, cover: float = 1.5) -> np.ndarray:
 
 def throughput(classify, box: Box) -> float:
     """Points per second over N_POINTS in chunks (best of REPEATS)."""
-    sampler = UniformSampler(make_seed(1))
-    chunks = [scale_to_box(sampler.random(CHUNK), box) for _ in range(N_POINTS // CHUNK)]
+    sampler = UniformSampler(make_seed(1), box)
+    chunks = [sampler.random(CHUNK) for _ in range(N_POINTS // CHUNK)]
     best = np.inf
     for _ in range(REPEATS):
         start = time.perf_counter()
@@ -69,7 +70,7 @@ def throughput(classify, box: Box) -> float:
 def peak_memory(classify, box: Box, chunk: int, points: int) -> float:
     """Peak traced memory (MiB) of a hit_or_miss run."""
     tracemalloc.start()
-    hit_or_miss(box, classify, UniformSampler(make_seed(2)), budget=points, chunk=chunk)
+    hit_or_miss(UniformSampler(make_seed(2), box), classify, Stopper(StopRule(points=points)), chunk=chunk)
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
     return peak / 2**20

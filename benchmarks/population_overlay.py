@@ -31,7 +31,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from areamc.coverage import estimate_coverage  # noqa: E402
 from areamc.density import BlockDensity  # noqa: E402
-from areamc.estimate import StopRule  # noqa: E402
+from areamc.stopping import StopRule  # noqa: E402
 from areamc.load import layer_from_geometries  # noqa: E402
 from areamc.project import project_layers  # noqa: E402
 
@@ -89,17 +89,18 @@ def main() -> None:
     exact = float(np.sum(counts * inter / shapely.area(pblocks.planar)))
     exact_time = time.perf_counter() - start
 
-    half = (row.population_share_ci_high - row.population_share_ci_low) / 2
+    people = row.population
+    half = (people.ci_high - people.ci_low) / 2
     print(f"areamc (importance sampling, to 0.5% relative half-width): {mc_time:7.2f} s, "
-          f"{row.population_points:,} points")
-    print(f"  covered population {row.covered_population:,.0f} "
-          f"[{row.population_share_ci_low * row.population:,.0f}, {row.population_share_ci_high * row.population:,.0f}]"
-          f"  (relative half-width {half / row.population_share:.4%})")
+          f"{people.points:,} points")
+    print(f"  covered population {people.covered:,.0f} "
+          f"[{people.ci_low * people.total:,.0f}, {people.ci_high * people.total:,.0f}]"
+          f"  (relative half-width {half / people.share:.4%})")
     print(f"exact overlay (union_all + intersection):                 {exact_time:7.2f} s")
     print(f"  covered population {exact:,.0f}")
     print(f"ratio exact / areamc time: {exact_time / mc_time:.2f}")
     print(f"exact value inside the interval: "
-          f"{row.population_share_ci_low * row.population <= exact <= row.population_share_ci_high * row.population}")
+          f"{people.ci_low * people.total <= exact <= people.ci_high * people.total}")
 
 
 if __name__ == "__main__":

@@ -8,6 +8,8 @@ are in WGS84 longitude/latitude degrees.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pyproj
 import pytest
@@ -17,7 +19,8 @@ from shapely.geometry.polygon import orient
 from areamc.load import layer_from_geometries
 from areamc.project import project_layer
 
-# --- boxes (west, south, east, north), the cells of REFERENCES.md §2 -------------------------
+# --- boxes (west, south, east, north); their WGS84 areas follow from the closed form ----------
+# --- A = (a²/2) Δλ (q(φ2) − q(φ1)), Snyder 1987, USGS Prof. Paper 1395, eq. 3-12 -------------
 EQUATOR_BOX = (0.0, 0.0, 1.0, 1.0)
 MID_LATITUDE_BOX = (0.0, 45.0, 1.0, 46.0)
 HIGH_LATITUDE_BOX = (0.0, 80.0, 1.0, 81.0)
@@ -107,3 +110,98 @@ def project():
 def small_features(project):
     """CONCAVE, HOLED and MULTI projected together onto the chosen plane."""
     return project([CONCAVE, HOLED, MULTI], ids=["concave", "holed", "multi"])
+
+
+# --- helpers shared by several test files (plain functions: ``from conftest import ...``) ----------
+
+#: The tool's default --densify of 1 km, in degrees of a geographic layer (1000 / 111 320).
+STEP_DEG = 1000.0 / 111_320.0
+
+
+def run_cli(capsys, argv) -> tuple[int, str, str]:
+    """Run ``areamc ARGV`` in-process; return (exit status, stdout, stderr)."""
+    from areamc.cli import main
+
+    rc = main(list(argv))
+    out, err = capsys.readouterr()
+    return rc, out, err
+
+
+def run_json(capsys, argv, expect: int = 0) -> dict:
+    """Run ``areamc ARGV --format json -q`` and parse stdout; the exit status must be `expect`."""
+    import json
+
+    rc, out, err = run_cli(capsys, [*argv, "--format", "json", "-q"])
+    assert rc == expect, err
+    return json.loads(out)
+
+
+def to_plane(geoms, src_crs, doc, step=None) -> list:
+    """Densify in the source CRS (1 km, with shapely), then project with pyproj to the plane named in
+    a JSON result's metadata: an independent reconstruction of the tool's planar geometries."""
+    import shapely
+
+    if step is None:
+        step = STEP_DEG if src_crs.is_geographic else 1000.0
+    plane = pyproj.CRS.from_wkt(doc["equal_area_crs"]["wkt"])
+    trans = pyproj.Transformer.from_crs(src_crs, plane, always_xy=True)
+
+    def move(xy):
+        return np.column_stack(trans.transform(xy[:, 0], xy[:, 1]))
+
+    return [shapely.transform(shapely.segmentize(g, step), move) for g in geoms]
+
+
+def overlay_total(blocks, counts, region) -> float:
+    """Areal weighting with shapely over every block (Goodchild & Lam 1980, Geo-Processing 1:297-312):
+    Σ count_i |block_i ∩ region| / |block_i|."""
+    import shapely
+
+    inter = shapely.area(shapely.intersection(blocks, region))
+    return float(np.sum(np.asarray(counts) * inter / shapely.area(blocks)))
+
+
+def write_raster(path, data, *, west, north, dx, dy=None, crs="EPSG:4326", nodata=None, dtype="float64") -> str:
+    """Write a one-band GeoTIFF with north-up cells of dx by dy (CRS units) with rasterio; return its path."""
+    import rasterio
+    import rasterio.transform
+
+    data = np.asarray(data, dtype=dtype)
+    transform = rasterio.transform.from_origin(west, north, dx, dy if dy is not None else dx)
+    profile = dict(driver="GTiff", height=data.shape[0], width=data.shape[1], count=1, dtype=dtype,
+                   transform=transform)
+    if crs is not None:
+        profile["crs"] = crs
+    if nodata is not None:
+        profile["nodata"] = nodata
+    with rasterio.open(path, "w", **profile) as dst:
+        dst.write(data, 1)
+    return str(path)
+
+
+def mid_p_z(hits: int, n: int, p0: float) -> float:
+    """Signed normal score of the two-sided mid-p binomial tail (Lancaster 1961, JASA 56:223-234):
+    P = min(1, 2 min(P(X < h) + P(X = h)/2, P(X > h) + P(X = h)/2)) for X ~ Binomial(n, p0), and
+    z = sign(h - n p0) * Phi^-1(1 - P/2); written out here with scipy.stats."""
+    from scipy import stats
+
+    half = 0.5 * stats.binom.pmf(hits, n, p0)
+    low = stats.binom.cdf(hits - 1, n, p0) + half
+    high = stats.binom.sf(hits, n, p0) + half
+    p_two = min(1.0, 2 * min(low, high))
+    score = stats.norm.isf(p_two / 2)
+    return float(score if hits >= n * p0 else -score)
+
+
+def wilson_by_quadratic(k, n, z):
+    """Wilson (1927): the interval is the set of p with (p_hat - p)^2 <= z^2 p (1 - p) / n.
+
+    Solved here as the quadratic (1 + z²/n) p² - (2 p_hat + z²/n) p + p_hat² = 0, a different
+    route from the closed form areamc uses.
+    """
+    p_hat = k / n
+    a = 1 + z * z / n
+    b = -(2 * p_hat + z * z / n)
+    c = p_hat * p_hat
+    disc = math.sqrt(b * b - 4 * a * c)
+    return (-b - disc) / (2 * a), (-b + disc) / (2 * a)

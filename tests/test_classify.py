@@ -1,10 +1,10 @@
-"""Tests of ``areamc.classify``: point-in-polygon tests and the grid ZoneIndex.
+"""Tests of ``areamc.classify``: point-in-polygon tests, the grid index GridIndex and region_classifier.
 
 The reference is a brute-force count: for every zone, ``shapely.contains_xy`` on every point
 (shapely 2 / GEOS), summed.  The index must return exactly that count for every point, whatever
 the grid size (forced down to one cell and up past the default cap), for zones with holes,
 multipolygons, nested and identical zones, and zones larger than the sampling box.  Geometries
-are in plane metres, as ZoneIndex expects; the shapes are random test inputs, not reference data.
+are in plane metres, as GridIndex expects; the shapes are random test inputs, not reference data.
 """
 
 from __future__ import annotations
@@ -14,8 +14,8 @@ import pytest
 import shapely
 from shapely.geometry import MultiPolygon, Point, Polygon, box
 
-from areamc.classify import ZoneIndex, _grid_size, inside
-from areamc.sampling import Box
+from areamc.classify import GridIndex, _grid_size, inside, region_classifier
+from areamc.samplers import Box
 
 #: Sampling box, plane metres (about 40 km x 30 km).
 BOX = Box(500_000.0, 4_980_000.0, 540_000.0, 5_010_000.0)
@@ -76,9 +76,9 @@ def zones():
 
 
 @pytest.mark.parametrize("cells", [1, 2, 7, None, 300], ids=["1", "2", "7", "default", "300"])
-def test_zone_index__counts_equal_brute_force(zones, cells):
+def test_grid_index__counts_equal_brute_force(zones, cells):
     x, y = random_points(11, 60_000)
-    index = ZoneIndex(zones, BOX, cells=cells)
+    index = GridIndex(zones, BOX, cells=cells)
     expected = brute_counts(zones, x, y)
     assert expected.max() >= 4  # the arrangement really has deep overlaps
     assert (expected == 1).sum() > 0  # ... and the bigger-than-the-box zone is counted
@@ -89,9 +89,9 @@ def test_zone_index__counts_equal_brute_force(zones, cells):
 
 
 @pytest.mark.parametrize("cells", [1, 5, None])
-def test_zone_index__points_on_cell_lines_and_box_edges(zones, cells):
+def test_grid_index__points_on_cell_lines_and_box_edges(zones, cells):
     """Points exactly on grid lines and on the box's edges (incl. xmax, ymax) land in a cell."""
-    index = ZoneIndex(zones, BOX, cells=cells)
+    index = GridIndex(zones, BOX, cells=cells)
     g = index.cells
     lines_x = BOX.xmin + (BOX.xmax - BOX.xmin) * np.arange(g + 1) / g
     lines_y = BOX.ymin + (BOX.ymax - BOX.ymin) * np.arange(g + 1) / g
@@ -102,21 +102,21 @@ def test_zone_index__points_on_cell_lines_and_box_edges(zones, cells):
     np.testing.assert_array_equal(index.counts(x, y), brute_counts(zones, x, y))
 
 
-def test_zone_index__other_random_arrangements():
+def test_grid_index__other_random_arrangements():
     for seed in (1, 2, 3):
         zones = random_zones(seed, n=25)
         x, y = random_points(100 + seed, 20_000)
-        np.testing.assert_array_equal(ZoneIndex(zones, BOX).counts(x, y), brute_counts(zones, x, y))
+        np.testing.assert_array_equal(GridIndex(zones, BOX).counts(x, y), brute_counts(zones, x, y))
 
 
-def test_zone_index__no_zones_counts_zero():
+def test_grid_index__no_zones_counts_zero():
     x, y = random_points(3, 1000)
-    index = ZoneIndex([], BOX)
+    index = GridIndex([], BOX)
     np.testing.assert_array_equal(index.counts(x, y), np.zeros(1000, dtype=np.int64))
 
 
-def test_zone_index__empty_point_arrays():
-    index = ZoneIndex(random_zones(4, n=10), BOX)
+def test_grid_index__empty_point_arrays():
+    index = GridIndex(random_zones(4, n=10), BOX)
     assert index.counts(np.zeros(0), np.zeros(0)).shape == (0,)
 
 
@@ -139,19 +139,37 @@ def test_inside__agrees_with_shapely_contains_on_point_objects(zones):
 
 
 @pytest.mark.parametrize("n_points", [30, 500, 50_000])
-def test_zone_index__few_and_many_points_per_zone(zones, n_points):
+def test_grid_index__few_and_many_points_per_zone(zones, n_points):
     """Few candidate points per zone (one vectorised call) and many (zone-by-zone calls) agree
     with the brute-force count."""
     x, y = random_points(21 + n_points, n_points)
-    np.testing.assert_array_equal(ZoneIndex(zones, BOX, cells=3).counts(x, y), brute_counts(zones, x, y))
+    np.testing.assert_array_equal(GridIndex(zones, BOX, cells=3).counts(x, y), brute_counts(zones, x, y))
 
 
 @pytest.mark.parametrize("cells", [1, None])
-def test_zone_index__pairs_are_every_containing_zone(zones, cells):
+def test_grid_index__pairs_are_every_containing_zone(zones, cells):
     """pairs(x, y): every (point, zone) with the zone containing the point, none else."""
     x, y = random_points(31, 5_000)
-    point, zone = ZoneIndex(zones, BOX, cells=cells).pairs(x, y)
+    point, zone = GridIndex(zones, BOX, cells=cells).pairs(x, y)
     got = set(zip(point.tolist(), zone.tolist()))
     assert len(got) == len(point)  # no pair twice
     expected = {(int(p), z) for z, geom in enumerate(zones) for p in np.flatnonzero(shapely.contains_xy(geom, x, y))}
     assert got == expected
+
+
+def test_region_classifier__in_region_and_covered_at_least_k(zones):
+    """Column 0: inside the region (shapely.contains_xy); column j: inside it and in at least ks[j-1]
+    zones (the brute-force count), for points in the region's box and beyond it."""
+    region = Point(BOX.xmin + 20_000, BOX.ymin + 15_000).buffer(12_000).difference(
+        box(BOX.xmin + 17_000, BOX.ymin + 12_000, BOX.xmin + 23_000, BOX.ymin + 18_000))
+    ks = (1, 2, 4)
+    classify = region_classifier(region, zones, ks)
+    x, y = random_points(41, 40_000)
+    got = classify(x, y)
+    assert got.shape == (len(x), 1 + len(ks)) and got.dtype == bool
+    within = shapely.contains_xy(region, x, y)
+    counts = brute_counts(zones, x, y)
+    np.testing.assert_array_equal(got[:, 0], within)
+    for j, k in enumerate(ks, start=1):
+        np.testing.assert_array_equal(got[:, j], within & (counts >= k))
+    assert got[:, 3].any() and (got[:, 1] & ~got[:, 3]).any()  # guard: the k columns differ

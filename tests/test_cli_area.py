@@ -10,14 +10,16 @@ Every expected number here comes from outside areamc:
 * interval bounds from the Wilson (1927) score formula (Wilson 1927, JASA
   22:209-212; Newcombe 1998, Statistics in Medicine 17:857-872, method 3)
   with the normal quantile from Python's ``statistics.NormalDist``;
+* the deviation ``z`` from the two-sided mid-p binomial tail (Lancaster 1961,
+  JASA 56:223-234) with ``scipy.stats.binom``;
 * unit factors from NIST Handbook 44, Appendix C.
 
 The sample data (sample_data/) is invented; its numbers are never hard-coded
 here, they are recomputed from the files.
 
-Bad-input cases run in-process through ``areamc.cli.main(argv)`` (fast); a
-handful of subprocess runs check the installed ``areamc`` script and
-``python -m areamc`` end to end.
+Bad-input cases run in-process through ``areamc.cli.main(argv)`` (fast, with
+conftest's ``run_cli``/``run_json``); a handful of subprocess runs check the
+installed ``areamc`` script and ``python -m areamc`` end to end.
 """
 
 from __future__ import annotations
@@ -29,6 +31,7 @@ import io
 import json
 import math
 import os
+import re
 import shutil
 import subprocess
 import sys
@@ -46,7 +49,8 @@ from shapely.geometry import LineString, Polygon, box, mapping, shape
 import areamc
 from areamc.cli import main
 from areamc.errors import InputError
-from areamc.load import AreamcWarning
+
+from conftest import run_cli, run_json, mid_p_z
 
 ROOT = Path(__file__).resolve().parents[1]
 SAMPLE = ROOT / "sample_data"
@@ -84,29 +88,7 @@ AREAMC = [_script] if _script else [sys.executable, "-c", "import sys; from area
 # --------------------------------------------------------------------------- helpers
 
 
-def run_main(argv, capsys):
-    """Run ``areamc.cli.main(argv)`` in-process; return (status, stdout, stderr).
-
-    Warning filters are set as a fresh ``areamc`` process has them (library deprecation
-    warnings hidden, areamc's own warnings always shown), and main's warning hook is undone.
-    """
-    capsys.readouterr()
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", DeprecationWarning)
-        warnings.simplefilter("ignore", PendingDeprecationWarning)
-        warnings.simplefilter("always", AreamcWarning)
-        status = main([str(a) for a in argv])
-    out, err = capsys.readouterr()
-    return status, out, err
-
-
-def run_json(argv, capsys) -> dict:
-    status, out, err = run_main([*argv, "--format", "json"], capsys)
-    assert status == 0, err
-    return json.loads(out)
-
-
-def run_cli(*args, module: bool = False, cwd=None) -> subprocess.CompletedProcess:
+def run_script(*args, module: bool = False, cwd=None) -> subprocess.CompletedProcess:
     """Run the installed ``areamc`` script (or ``python -m areamc``) in a subprocess."""
     cmd = [sys.executable, "-m", "areamc"] if module else list(AREAMC)
     return subprocess.run([*cmd, *map(str, args)], capture_output=True, text=True, timeout=120, cwd=cwd)
@@ -191,6 +173,8 @@ def assert_one_line_error(status, out, err, *needles):
     assert lines[0].startswith("areamc: error:"), lines[0]
     for needle in needles:
         assert str(needle) in lines[0], (needle, lines[0])
+    # the library names its Python parameters; the command line shows the flags instead
+    assert not re.search(r"(?<![-\w])(id_field|densify_m|input_crs|trace_every|time_s|seed:)", lines[0]), lines[0]
 
 
 # --------------------------------------------------------------------------- files made in tmp
@@ -236,8 +220,8 @@ BAD_AREA_CASES = [
     ("point-layer", ["{gpkg}", "--layer", "clinics"], ["{gpkg}", "clinics"]),
     ("linestring-geojson", ["{lines}"], ["{lines}"]),
     ("no-crs-shapefile", ["{nocrs}"], ["{nocrs}", "--input-crs"]),
-    ("unknown-id-field", ["{gpkg}", "--id-field", "no_such_field"], ["{gpkg}", "--id-field", "no_such_field"]),
-    ("crs-web-mercator", ["{gpkg}", "--crs", "EPSG:3857"], ["--crs", "EPSG:3857"]),
+    ("unknown-id-field", ["{gpkg}", "--id-field", "no_such_field"], ["{gpkg}", "--id-field 'no_such_field'"]),
+    ("crs-web-mercator", ["{gpkg}", "--crs", "EPSG:3857"], ["--crs EPSG:3857: not equal-area"]),
     ("crs-utm", ["{gpkg}", "--crs", "EPSG:32632"], ["--crs", "EPSG:32632"]),
     ("crs-geographic", ["{gpkg}", "--crs", "EPSG:4326"], ["--crs", "EPSG:4326"]),
     ("crs-unknown-code", ["{gpkg}", "--crs", "EPSG:999999"], ["--crs", "EPSG:999999"]),
@@ -280,10 +264,8 @@ def test_bad_input_is_one_line_exit_2_and_leaves_no_output(bad_files, tmp_path, 
     before = fingerprint(bad_files["folder"])
     out_dir = tmp_path / "out"
     out_dir.mkdir()
-    status, out, err = run_main(
-        ["area", *argv, "--output", out_dir / "result.json", "--trace", out_dir / "trace.csv", "--seed", "1"],
-        capsys,
-    )
+    status, out, err = run_cli(capsys, map(str, ["area", *argv, "--output", out_dir / "result.json",
+                                                 "--trace", out_dir / "trace.csv", "--seed", "1"]))
     assert_one_line_error(status, out, err, *needles)
     assert list(out_dir.iterdir()) == []  # no result, no trace, no temporary file
     assert fingerprint(bad_files["folder"]) == before  # inputs untouched: bytes, mtime, no new files
@@ -291,7 +273,7 @@ def test_bad_input_is_one_line_exit_2_and_leaves_no_output(bad_files, tmp_path, 
 
 def test_output_in_missing_folder_is_refused(bad_files, tmp_path, capsys):
     target = tmp_path / "no_such_folder" / "result.json"
-    status, out, err = run_main(["area", bad_files["gpkg"], "-n", "1000", "--output", target], capsys)
+    status, out, err = run_cli(capsys, map(str, ["area", bad_files["gpkg"], "-n", "1000", "--output", target]))
     assert_one_line_error(status, out, err, "--output")
     assert not target.parent.exists()
 
@@ -300,7 +282,7 @@ def test_output_over_the_input_is_refused(tmp_path, capsys):
     copy = tmp_path / "copy.gpkg"
     shutil.copyfile(GPKG, copy)
     before = fingerprint(tmp_path)
-    status, out, err = run_main(["area", copy, "-n", "1000", "--output", copy, "--format", "json"], capsys)
+    status, out, err = run_cli(capsys, map(str, ["area", copy, "-n", "1000", "--output", copy, "--format", "json"]))
     assert_one_line_error(status, out, err, "--output")
     assert fingerprint(tmp_path) == before
 
@@ -313,7 +295,7 @@ def test_verbose_shows_the_error_itself(bad_files, capsys):
 
 def test_shapefile_without_prj_works_with_input_crs(tmp_path, capsys):
     path = _write_shapefile_without_prj(tmp_path)
-    doc = run_json(["area", path, "--input-crs", "EPSG:4326", "-n", "20000", "--seed", "4"], capsys)
+    doc = run_json(capsys, map(str, ["area", path, "--input-crs", "EPSG:4326", "-n", "20000", "--seed", "4"]))
     assert doc["input"]["crs"] == "EPSG:4326"
     with fiona.open(path) as src:  # the geometry itself, read independently
         expected = {str(f.id): geod_area(shapely.segmentize(shape(f.geometry), 1000 / METRES_PER_DEGREE)) for f in src}
@@ -337,10 +319,8 @@ def test_bow_tie_is_repaired_and_empty_geometries_are_skipped(tmp_path, capsys):
         dst.write({"geometry": mapping(bow), "properties": {"name": "bowtie"}})
         dst.write({"geometry": None, "properties": {"name": "nothing"}})
         dst.write({"geometry": {"type": "Polygon", "coordinates": []}, "properties": {"name": "hollow"}})
-    status, out, err = run_main(
-        ["area", path, "--id-field", "name", "-n", "40000", "--seed", "12", "--confidence", "0.999", "--format", "json"],
-        capsys,
-    )
+    status, out, err = run_cli(capsys, map(str, ["area", path, "--id-field", "name", "-n", "40000", "--seed", "12",
+                                                 "--confidence", "0.999", "--format", "json"]))
     assert status == 0, err
     rows = {row["id"]: row for row in json.loads(out)["results"]}
     assert list(rows) == ["square", "bowtie"]  # the two empty features are skipped
@@ -387,7 +367,10 @@ def check_rows_against_file(doc, path, layer, points):
         low, high = wilson(row["hits"], row["points"], confidence)
         assert rel(row["ci_low"], row["box_area"] * low) < 1e-9
         assert rel(row["ci_high"], row["box_area"] * high) < 1e-9
-        assert rel(row["z"], (row["estimate"] - row["exact_planar"]) / row["stderr"]) < 1e-9
+        # z: mid-p binomial score of the hits at p0 = exact planar area / box (Lancaster 1961)
+        z = mid_p_z(row["hits"], row["points"], row["exact_planar"] / row["box_area"])
+        assert row["z"] == pytest.approx(z, rel=1e-9, abs=1e-12)
+        assert not row["flagged"]
         # Geodesic area: pyproj.Geod on the file's own geometry, densified here (Karney 2013).
         assert rel(row["geodesic"], geod_area(lonlat)) < 1e-9
         # Planar area: shapely in the plane the tool reports, reprojected here with pyproj.
@@ -400,7 +383,7 @@ def check_rows_against_file(doc, path, layer, points):
 def test_end_to_end_json_on_sample_files(path, layer):
     args = ["area", path, *(["--layer", layer] if layer else []), "--format", "json",
             "--seed", "20240601", "--confidence", "0.999", "--points", "100000"]
-    proc = run_cli(*args)
+    proc = run_script(*args)
     assert proc.returncode == 0, proc.stderr
     assert proc.stderr == ""  # valid sample data: no warnings, no progress bar off a terminal
     doc = json.loads(proc.stdout)
@@ -418,9 +401,9 @@ def test_end_to_end_json_on_sample_files(path, layer):
 
 def test_python_dash_m_matches_in_process_run(capsys):
     args = ["area", UTM, "--format", "csv", "--seed", "2", "-n", "5000"]
-    proc = run_cli(*args, module=True)
+    proc = run_script(*args, module=True)
     assert proc.returncode == 0, proc.stderr
-    status, out, err = run_main(args, capsys)
+    status, out, err = run_cli(capsys, map(str, args))
     assert status == 0, err
     assert proc.stdout == out
     rows = list(csv.DictReader(io.StringIO(proc.stdout)))
@@ -429,14 +412,14 @@ def test_python_dash_m_matches_in_process_run(capsys):
 
 
 def test_version_flag():
-    proc = run_cli("--version")
+    proc = run_script("--version")
     assert proc.returncode == 0, proc.stderr
     assert proc.stdout.strip() == f"areamc {importlib.metadata.version('areamc')}"
 
 
 def test_output_and_trace_files_end_to_end(tmp_path):
     out, trace = tmp_path / "result.json", tmp_path / "trace.csv"
-    proc = run_cli("area", GPKG, "--layer", "districts", "-n", "50000", "--seed", "3", "--quiet",
+    proc = run_script("area", GPKG, "--layer", "districts", "-n", "50000", "--seed", "3", "--quiet",
                    "--trace", trace, "--trace-every", "5000", "--output", out)
     assert proc.returncode == 0, proc.stderr
     assert proc.stdout == ""  # results went to the file
@@ -466,7 +449,7 @@ def test_trace_ends_on_the_final_estimate_when_k_does_not_divide(tmp_path, capsy
     # K = 7000 divides neither 50 000 nor a multiple of the 4096-point chunk below 28 672: the trace
     # still has a row every K points and must end with one more row holding the final state.
     trace = tmp_path / "trace.csv"
-    doc = run_json(["area", UTM, *stop, "--seed", "3", "--trace", trace, "--trace-every", "7000"], capsys)
+    doc = run_json(capsys, map(str, ["area", UTM, *stop, "--seed", "3", "--trace", trace, "--trace-every", "7000"]))
     rows = list(csv.DictReader(io.StringIO(trace.read_text())))
     for final in doc["results"]:
         mine = [r for r in rows if r["id"] == final["id"]]
@@ -486,8 +469,9 @@ def test_all_files_untouched_by_a_successful_run(tmp_path, capsys):
     before = fingerprint(data)
     for name, layer in [("vale_county.gpkg", "districts"), ("vale_districts.shp", None),
                         ("vale_districts.geojson", None), ("vale_reserves_utm32n.gpkg", None)]:
-        status, _, err = run_main(["area", data / name, *(["--layer", layer] if layer else []), "-n", "2000",
-                                   "--seed", "1", "--output", tmp_path / "r.csv", "--trace", tmp_path / "t.csv"], capsys)
+        status, _, err = run_cli(capsys, map(str, ["area", data / name, *(["--layer", layer] if layer else []),
+                                                   "-n", "2000", "--seed", "1", "--output", tmp_path / "r.csv",
+                                                   "--trace", tmp_path / "t.csv"]))
         assert status == 0, err
     assert fingerprint(data) == before
 
@@ -497,8 +481,8 @@ def test_all_files_untouched_by_a_successful_run(tmp_path, capsys):
 
 def test_csv_has_the_json_columns_and_values(capsys):
     args = ["area", GPKG, "--layer", "districts", "-n", "20000", "--seed", "8"]
-    doc = run_json(args, capsys)
-    status, out, err = run_main([*args, "--format", "csv"], capsys)
+    doc = run_json(capsys, map(str, args))
+    status, out, err = run_cli(capsys, map(str, [*args, "--format", "csv"]))
     assert status == 0, err
     reader = csv.DictReader(io.StringIO(out))
     rows = list(reader)
@@ -517,7 +501,7 @@ def test_csv_has_the_json_columns_and_values(capsys):
 
 def test_output_csv_extension_infers_csv(tmp_path, capsys):
     target = tmp_path / "areas.csv"
-    status, out, err = run_main(["area", UTM, "-n", "3000", "--seed", "1", "--output", target], capsys)
+    status, out, err = run_cli(capsys, map(str, ["area", UTM, "-n", "3000", "--seed", "1", "--output", target]))
     assert status == 0, err
     assert out == ""
     rows = list(csv.DictReader(io.StringIO(target.read_text())))
@@ -527,8 +511,12 @@ def test_output_csv_extension_infers_csv(tmp_path, capsys):
 
 
 def test_table_is_the_default_format(capsys):
-    status, out, err = run_main(["area", UTM, "-n", "3000", "--seed", "1"], capsys)
+    doc = run_json(capsys, map(str, ["area", UTM, "-n", "3000", "--seed", "1"]))
+    assert not any(row["flagged"] for row in doc["results"])
+    status, out, err = run_cli(capsys, map(str, ["area", UTM, "-n", "3000", "--seed", "1"]))
     assert status == 0, err
+    # the footer sentence shared by every command, here for planar areas
+    assert out.rstrip().endswith("no row flagged: every estimate within 4 standard errors of the exact planar area")
     assert out.startswith(f"areamc area: {UTM}")
     heading = next(line for line in out.splitlines() if line.startswith("id "))
     for column in ("estimate", "ci_low", "ci_high", "exact_planar", "geodesic"):
@@ -542,8 +530,8 @@ def test_table_is_the_default_format(capsys):
 @pytest.mark.parametrize("unit", ["ha", "km2", "acre", "mi2"])
 def test_units_convert_every_area_column(capsys, unit):
     args = ["area", GPKG, "--layer", "districts", "-n", "20000", "--seed", "21"]
-    base = run_json([*args, "--units", "m2"], capsys)
-    other = run_json([*args, "--units", unit], capsys)
+    base = run_json(capsys, map(str, [*args, "--units", "m2"]))
+    other = run_json(capsys, map(str, [*args, "--units", unit]))
     assert other["units"] == unit
     for a, b in zip(base["results"], other["results"]):
         for key in AREA_FIELDS + ("box_area",):
@@ -555,23 +543,35 @@ def test_units_convert_every_area_column(capsys, unit):
 
 def test_same_seed_same_results_whatever_the_chunk(capsys):
     args = ["area", UTM, "-n", "30000", "--seed", "9"]
-    results = [run_json([*args, "--chunk", str(c)], capsys)["results"] for c in (1000, 4097, 65536)]
+    results = [run_json(capsys, map(str, [*args, "--chunk", str(c)]))["results"] for c in (1000, 4097, 65536)]
     assert results[0] == results[1] == results[2]
 
 
 def test_seed_is_recorded_and_replays(capsys):
     args = ["area", UTM, "-n", "5000"]
-    fresh = run_json(args, capsys)
-    replay = run_json([*args, "--seed", str(fresh["seed"])], capsys)
+    fresh = run_json(capsys, map(str, args))
+    replay = run_json(capsys, map(str, [*args, "--seed", str(fresh["seed"])]))
     assert replay["results"] == fresh["results"]
-    other = run_json([*args, "--seed", str(fresh["seed"] + 1)], capsys)
+    other = run_json(capsys, map(str, [*args, "--seed", str(fresh["seed"] + 1)]))
     assert [r["hits"] for r in other["results"]] != [r["hits"] for r in fresh["results"]]
+
+
+def test_time_limit_stops_each_estimate_and_is_recorded(capsys):
+    # 10 ms per estimate cannot draw 100 million points (minutes of work): every row stops on time,
+    # at a chunk end, and its estimate is still an honest one (4 standard errors, common practice)
+    doc = run_json(capsys, map(str, ["area", UTM, "-n", "100000000", "--chunk", "4096", "--time-limit", "0.01",
+                                     "--seed", "2", "--sampler", "uniform"]))
+    assert doc["stop"]["time_s"] == 0.01 and doc["sampler"] == "uniform"
+    for row in doc["results"]:
+        assert row["stop_reason"] == "time"
+        assert 0 < row["points"] < 100_000_000 and row["points"] % 4096 == 0
+        assert abs(row["estimate"] - row["exact_planar"]) <= 4 * row["stderr"]
 
 
 def test_no_exact_skips_the_checks_but_not_the_estimates(capsys):
     args = ["area", UTM, "-n", "5000", "--seed", "5"]
-    full = run_json(args, capsys)
-    bare = run_json([*args, "--no-exact"], capsys)
+    full = run_json(capsys, map(str, args))
+    bare = run_json(capsys, map(str, [*args, "--no-exact"]))
     for a, b in zip(full["results"], bare["results"]):
         assert b["exact_planar"] is None and b["geodesic"] is None and b["z"] is None
         for key in ("id", "estimate", "stderr", "ci_low", "ci_high", "points", "hits"):
@@ -579,13 +579,14 @@ def test_no_exact_skips_the_checks_but_not_the_estimates(capsys):
 
 
 def test_id_field_labels_rows(capsys):
-    doc = run_json(["area", GPKG, "--layer", "districts", "--id-field", "district_id", "-n", "2000", "--seed", "1"], capsys)
+    doc = run_json(capsys, map(str, ["area", GPKG, "--layer", "districts", "--id-field", "district_id", "-n", "2000",
+                                     "--seed", "1"]))
     with fiona.open(GPKG, layer="districts") as src:
         assert [r["id"] for r in doc["results"]] == [f.properties["district_id"] for f in src]
 
 
 def test_requested_equal_area_crs_is_used(capsys):
-    doc = run_json(["area", GEOJSON, "--crs", "EPSG:6933", "-n", "5000", "--seed", "6"], capsys)
+    doc = run_json(capsys, map(str, ["area", GEOJSON, "--crs", "EPSG:6933", "-n", "5000", "--seed", "6"]))
     assert doc["equal_area_crs"]["crs"] == "EPSG:6933"
     assert doc["equal_area_crs"]["chosen_from_extent"] is False
     crs, ref = reference_features(GEOJSON)
@@ -597,47 +598,73 @@ def test_requested_equal_area_crs_is_used(capsys):
 
 
 def test_densify_step_is_used_for_the_geodesic_area(capsys):
-    doc = run_json(["area", SHP, "--densify", "500", "-n", "2000", "--seed", "1"], capsys)
+    doc = run_json(capsys, map(str, ["area", SHP, "--densify", "500", "-n", "2000", "--seed", "1"]))
     assert doc["densify_m"] == 500
     _, ref = reference_features(SHP, step_m=500.0)
     for row in doc["results"]:
         assert rel(row["geodesic"], geod_area(ref[row["id"]][1])) < 1e-9  # pyproj.Geod, Karney 2013
 
 
-def _trace_rows(path: Path) -> dict:
-    out: dict = {}
-    for r in csv.DictReader(io.StringIO(path.read_text())):
-        out.setdefault(r["id"], {})[int(r["points"])] = r
-    return out
+def _wilson_half_width(hits: int, n: int, box_area: float, confidence: float) -> float:
+    low, high = wilson(hits, n, confidence)
+    return box_area * (high - low) / 2
 
 
-def test_relative_tolerance_stops_at_the_first_chunk_that_meets_it(tmp_path, capsys):
+def test_relative_tolerance_runs_a_pilot_then_a_final_batch(capsys):
+    """--tolerance runs in two stages (Stein 1945, Ann. Math. Statist. 16:243-258, for the idea): a
+    pilot to the first chunk whose Wilson half-width is within 2x the target, then a fresh batch
+    of max(1000, ceil(pilot x (pilot half-width / target)²)) points (half-widths fall as 1/sqrt(n),
+    common practice) from the stream after the pilot.  The pilot is replayed here with --points."""
     chunk = 2048
-    trace = tmp_path / "trace.csv"
-    doc = run_json(["area", UTM, "--tolerance", "2%", "--chunk", str(chunk), "--seed", "13",
-                    "--trace", trace, "--trace-every", str(chunk)], capsys)
-    assert doc["stop"]["tolerance_rel"] == pytest.approx(0.02)
-    running = _trace_rows(trace)
+    args = ["area", UTM, "--chunk", chunk, "--seed", 13]
+    doc = run_json(capsys, map(str, [*args, "--tolerance", "2%"]))
+    assert doc["stop"]["tolerance_relative"] == pytest.approx(0.02)
+    assert doc["stop"]["two_stage"] is True
+    confidence = doc["confidence"]
+    fixed = {}  # fixed-count replays of the same seed: the first N points of every feature's stream
+
+    def replay(n):
+        if n not in fixed:
+            fixed[n] = {r["id"]: r for r in run_json(capsys, map(str, [*args, "-n", n]))["results"]}
+        return fixed[n]
+
     for row in doc["results"]:
-        half = (row["ci_high"] - row["ci_low"]) / 2
-        assert half <= 0.02 * row["estimate"]
-        assert row["stopped_early"] is True and row["points"] % chunk == 0
-        if row["points"] > chunk:  # one chunk earlier the target was not met yet
-            prev = running[row["id"]][row["points"] - chunk]
-            assert (float(prev["ci_high"]) - float(prev["ci_low"])) / 2 > 0.02 * float(prev["estimate"])
+        assert row["stop_reason"] == "target"
+        pilot_n = row["pilot_points"]
+        assert pilot_n > 0 and pilot_n % chunk == 0  # the pilot stops at chunk ends
+        # the final half-width is near the target: random, it may exceed it by a few percent
+        assert (row["ci_high"] - row["ci_low"]) / 2 <= 1.3 * 0.02 * row["estimate"]
+        pilot = replay(pilot_n)[row["id"]]
+        pilot_hw = _wilson_half_width(pilot["hits"], pilot_n, row["box_area"], confidence)
+        assert pilot_hw <= 2 * 0.02 * pilot["estimate"]
+        if pilot_n > chunk:  # one chunk earlier the pilot had not met twice the target
+            before = replay(pilot_n - chunk)[row["id"]]
+            assert _wilson_half_width(before["hits"], pilot_n - chunk, row["box_area"], confidence) > \
+                2 * 0.02 * before["estimate"]
+        need = math.ceil(pilot_n * (pilot_hw / (0.02 * pilot["estimate"])) ** 2)
+        assert abs(row["points"] - max(need, 1000)) <= 1
+        # the final batch follows the pilot in the stream: their hits add up to a fixed run of both
+        assert replay(pilot_n + row["points"])[row["id"]]["hits"] == pilot["hits"] + row["hits"]
 
 
 def test_absolute_tolerance_is_in_the_output_units(capsys):
-    doc = run_json(["area", UTM, "--tolerance", "0.3", "--units", "km2", "--chunk", "4096", "--seed", "14"], capsys)
-    assert doc["stop"]["tolerance_abs_m2"] == pytest.approx(0.3e6)  # 0.3 km² = 300 000 m² (SI)
+    doc = run_json(capsys, map(str, ["area", UTM, "--tolerance", "0.3", "--units", "km2", "--chunk", "4096",
+                                     "--seed", "14"]))
+    # the stop rule is recorded in m² of the plane: 0.3 km² = 300 000 m² (SI)
+    assert doc["stop"]["tolerance_absolute"] == pytest.approx(0.3e6)
+    assert doc["stop"]["tolerance_relative"] is None
     for row in doc["results"]:
-        assert (row["ci_high"] - row["ci_low"]) / 2 <= 0.3  # km², like every area in this output
-        assert row["stopped_early"] is True
+        # km², like every area in this output; the two-stage half-width may exceed it by a few percent
+        assert (row["ci_high"] - row["ci_low"]) / 2 <= 1.3 * 0.3
+        assert row["stop_reason"] == "target" and row["pilot_points"] % 4096 == 0
 
 
 def test_max_points_caps_an_unreachable_tolerance(capsys):
-    doc = run_json(["area", UTM, "--tolerance", "0.001%", "--max-points", "8192", "--chunk", "4096", "--seed", "15"], capsys)
+    # the pilot may use half the cap, the final batch what is left: 4096 + 4096 of 8192
+    doc = run_json(capsys, map(str, ["area", UTM, "--tolerance", "0.001%", "--max-points", "8192", "--chunk", "4096",
+                                     "--seed", "15"]))
     for row in doc["results"]:
-        assert row["points"] == 8192
-        assert row["stopped_early"] is False
+        assert row["pilot_points"] == 4096 and row["points"] == 4096
+        assert row["pilot_points"] + row["points"] == 8192
+        assert row["stop_reason"] == "budget"
         assert (row["ci_high"] - row["ci_low"]) / 2 > 0.00001 * row["estimate"]

@@ -9,7 +9,9 @@ Expected numbers come from outside areamc:
   union of all k-fold intersections (common practice);
 * geodesic circles for the clinics from ``pyproj.Geod(ellps="WGS84").fwd`` (Karney 2013,
   J. Geodesy 87:43-55), built here;
-* claim verdicts are judged against those exact shares.
+* claim verdicts are judged against those exact shares;
+* the deviation ``z`` from the two-sided mid-p binomial tail (Lancaster 1961, JASA 56:223-234) of
+  the covered count over the in-region points, with ``scipy.stats.binom``.
 
 Estimates are held to their intervals at confidence 0.999 and to 4 standard errors (common
 practice).  The sample data (sample_data/) is invented; its numbers are recomputed from the
@@ -23,6 +25,7 @@ import io
 import itertools
 import json
 import os
+import re
 import shutil
 import subprocess
 import sys
@@ -38,17 +41,20 @@ from shapely.geometry.polygon import orient
 
 from areamc.cli import main
 
+from conftest import run_cli, run_json, to_plane, mid_p_z
+
 ROOT = Path(__file__).resolve().parents[1]
 GPKG = ROOT / "sample_data" / "vale_county.gpkg"
 UTM = ROOT / "sample_data" / "vale_reserves_utm32n.gpkg"
 GEOD = pyproj.Geod(ellps="WGS84")  # WGS84 (NIMA TR8350.2), built here on purpose
-STEP_DEG = 1000.0 / 111_320.0  # the tool's default --densify of 1 km, in degrees
 #: Districts over service zones, both from the sample GeoPackage.
 BASE = ["coverage", str(GPKG), str(GPKG), "--layer", "districts", "--id-field", "district_id",
         "--zones-layer", "service_zones", "--zones-id-field", "zone_id"]
 CLINICS = ["coverage", str(GPKG), str(GPKG), "--layer", "districts", "--id-field", "district_id",
            "--zones-layer", "clinics", "--zones-id-field", "clinic_id"]
-REQUIRED = ("id", "at_least", "share", "stderr", "ci_low", "ci_high", "exact_share")
+#: Python parameter names of the library that must not reach a command-line user (flags are shown instead).
+PARAMETER_NAMES = r"(?<![-\w])(id_field|radius_m|radius_field|vertices|input_crs)\b"
+REQUIRED = ("id", "k", "share", "stderr", "ci_low", "ci_high", "exact_share")
 
 _script = shutil.which("areamc", path=os.path.dirname(sys.executable)) or shutil.which("areamc")
 
@@ -63,19 +69,6 @@ def read(path, layer=None, id_field=None):
         crs = pyproj.CRS.from_user_input(src.crs.to_wkt())
     ids = [str(f.properties[id_field]) if id_field else str(f.id) for f in feats]
     return ids, [shape(f.geometry) for f in feats], crs
-
-
-def to_plane(geoms, src_crs, doc, step=None):
-    """Densify in the source CRS (1 km), then project to the plane named in the JSON metadata."""
-    if step is None:
-        step = STEP_DEG if src_crs.is_geographic else 1000.0
-    plane = pyproj.CRS.from_wkt(doc["equal_area_crs"]["wkt"])
-    trans = pyproj.Transformer.from_crs(src_crs, plane, always_xy=True)
-
-    def move(xy):
-        return np.column_stack(trans.transform(xy[:, 0], xy[:, 1]))
-
-    return [shapely.transform(shapely.segmentize(g, step), move) for g in geoms]
 
 
 def at_least_share(region, zones, k: int) -> float:
@@ -96,26 +89,17 @@ def exact_shares(doc, zones_path, zones_layer, zones_id, ks=(1,), zones=None):
     return {(rid, k): at_least_share(region, zones, k) for rid, region in regions.items() for k in ks}
 
 
-def run(capsys, argv):
-    rc = main(argv)
-    out, err = capsys.readouterr()
-    return rc, out, err
-
-
-def run_json(capsys, argv):
-    rc, out, err = run(capsys, [*argv, "--format", "json", "-q"])
-    assert rc == 0, err
-    return json.loads(out)
-
-
 def check_rows(rows, exact):
-    assert {(r["id"], r["at_least"]) for r in rows} == set(exact)
+    assert {(r["id"], r["k"]) for r in rows} == set(exact)
     for r in rows:
         assert set(REQUIRED) <= set(r)
-        ref = exact[(r["id"], r["at_least"])]
+        ref = exact[(r["id"], r["k"])]
         assert r["exact_share"] == pytest.approx(ref, rel=1e-6, abs=1e-12), r
         assert r["ci_low"] <= ref <= r["ci_high"], r
         assert abs(r["share"] - ref) <= 4 * r["stderr"] + 1e-12, r
+        # z: mid-p binomial score of the covered points among the in-region points (Lancaster 1961)
+        assert r["z"] == pytest.approx(mid_p_z(r["hits"], r["points"], r["exact_share"]), rel=1e-9, abs=1e-12)
+        assert not r["flagged"]
 
 
 def clinic_circles(n=256):
@@ -148,7 +132,7 @@ def test_coverage__shares_at_least_one_and_two_against_shapely(two_k_doc):
     exact = exact_shares(two_k_doc, GPKG, "service_zones", "zone_id", ks=(1, 2))
     assert sum(v > 0 for (_, k), v in exact.items() if k == 2) >= 4  # zones overlap inside districts
     check_rows(two_k_doc["results"], exact)
-    assert two_k_doc["at_least"] == [1, 2]
+    assert two_k_doc["k"] == [1, 2]
     for r in two_k_doc["results"]:  # no claim asked: no claim, no verdict
         assert r["claim"] is None and r["verdict"] is None
     assert two_k_doc["claim"] is None
@@ -203,16 +187,17 @@ def test_coverage__fail_on_shortfall_exit_status(capsys, two_k_doc):
     low, high = min(exact.values()), max(exact.values())
     assert 0.1 < low < high < 0.9  # guard on the claims below
     # every district is covered well above half its lowest share: nothing falls short -> 0
-    rc, out, err = run(capsys, [*BASE, "--claim", f"{low / 2:.4f}", "--fail-on-shortfall", "-n", "20000", "--seed", "6", "-q"])
+    rc, out, err = run_cli(capsys, [*BASE, "--claim", f"{low / 2:.4f}", "--fail-on-shortfall", "-n", "20000",
+                                    "--seed", "6", "-q"])
     assert rc == 0, err
     assert "0 fall short" in out
     # a claim above every district's share: all fall short -> 1
-    rc, out, err = run(capsys, [*BASE, "--claim", f"{min(1.0, high + 0.05):.4f}", "--fail-on-shortfall", "-n", "20000",
-                                "--seed", "6", "-q"])
+    rc, out, err = run_cli(capsys, [*BASE, "--claim", f"{min(1.0, high + 0.05):.4f}", "--fail-on-shortfall", "-n",
+                                    "20000", "--seed", "6", "-q"])
     assert rc == 1
     assert f"{len(exact)} fall short" in out
     # without --fail-on-shortfall the same shortfall exits 0
-    rc, _, _ = run(capsys, [*BASE, "--claim", f"{min(1.0, high + 0.05):.4f}", "-n", "20000", "--seed", "6", "-q"])
+    rc, _, _ = run_cli(capsys, [*BASE, "--claim", f"{min(1.0, high + 0.05):.4f}", "-n", "20000", "--seed", "6", "-q"])
     assert rc == 0
 
 
@@ -222,19 +207,19 @@ def test_coverage__fail_on_shortfall_exit_status(capsys, two_k_doc):
 @pytest.mark.parametrize("ext", ["gpkg", "geojson"])
 def test_coverage__vector_output_holds_regions_with_results(capsys, tmp_path, two_k_doc, ext):
     out = tmp_path / f"coverage.{ext}"
-    rc, stdout, err = run(capsys, [*BASE, "--at-least", "1", "--at-least", "2", "-n", "40000", "--seed", "2",
-                                   "--confidence", "0.999", "-q", "--output", str(out)])
+    rc, stdout, err = run_cli(capsys, [*BASE, "--at-least", "1", "--at-least", "2", "-n", "40000", "--seed", "2",
+                                       "--confidence", "0.999", "-q", "--output", str(out)])
     assert rc == 0, err
     assert stdout == ""
     did, dgeoms, _ = read(GPKG, "districts", "district_id")
     district = dict(zip(did, dgeoms))
-    expected = {(r["id"], r["at_least"]): r for r in two_k_doc["results"]}
+    expected = {(r["id"], r["k"]): r for r in two_k_doc["results"]}
     with fiona.open(out) as src:
         assert pyproj.CRS.from_user_input(src.crs.to_wkt()).to_epsg() == 4326  # the input CRS
         feats = list(src)
     assert len(feats) == len(expected)
     for f in feats:
-        key = (f.properties["id"], f.properties["at_least"])
+        key = (f.properties["id"], f.properties["k"])
         row = expected[key]
         for field in ("share", "stderr", "ci_low", "ci_high", "exact_share", "points"):
             assert f.properties[field] == pytest.approx(row[field], rel=1e-9), field
@@ -243,10 +228,21 @@ def test_coverage__vector_output_holds_regions_with_results(capsys, tmp_path, tw
         assert shapely.equals_exact(shapely.normalize(got), shapely.normalize(district[key[0]]), tolerance=1e-7)
 
 
+def test_coverage__table_footer_says_no_row_is_flagged(capsys, two_k_doc):
+    # the same run as the JSON fixture, whose rows are all within 4 standard errors (checked above)
+    assert not any(r["flagged"] for r in two_k_doc["results"])
+    rc, out, err = run_cli(capsys, [*BASE, "--at-least", "1", "--at-least", "2", "-n", "40000", "--seed", "2",
+                                    "--confidence", "0.999", "-q"])
+    assert rc == 0, err
+    heading = next(line for line in out.splitlines() if line.startswith("id "))
+    assert heading.split()[:3] == ["id", "k", "share"]
+    assert out.rstrip().endswith("no row flagged: every estimate within 4 standard errors of the exact share")
+
+
 def test_coverage__output_json_file_equals_stdout(capsys, tmp_path, two_k_doc):
     out = tmp_path / "coverage.json"
-    rc, stdout, _ = run(capsys, [*BASE, "--at-least", "1", "--at-least", "2", "-n", "40000", "--seed", "2",
-                                 "--confidence", "0.999", "-q", "--output", str(out)])
+    rc, stdout, _ = run_cli(capsys, [*BASE, "--at-least", "1", "--at-least", "2", "-n", "40000", "--seed", "2",
+                                     "--confidence", "0.999", "-q", "--output", str(out)])
     assert rc == 0 and stdout == ""
     assert json.loads(out.read_text())["results"] == two_k_doc["results"]
 
@@ -288,7 +284,7 @@ def bad_points(tmp_path_factory):
 )
 def test_coverage__bad_options_one_line_exit_2(capsys, extra, needle):
     points = [] if "--tolerance" in extra else ["-n", "100"]  # --points and --tolerance exclude each other
-    rc, out, err = run(capsys, [*BASE, *points, *extra])
+    rc, out, err = run_cli(capsys, [*BASE, *points, *extra])
     assert rc == 2
     assert out == ""
     assert err.count("\n") == 1 and err.startswith("areamc") and "Traceback" not in err
@@ -298,28 +294,68 @@ def test_coverage__bad_options_one_line_exit_2(capsys, extra, needle):
 @pytest.mark.parametrize(
     "extra, needle",
     [
-        pytest.param([], "--radius", id="points-without-radius"),
+        pytest.param([], "give --radius or --radius-field", id="points-without-radius"),
+        pytest.param(["--radius", "5km", "--circle-vertices", "3"], "--circle-vertices: at least 8",
+                     id="circle-vertices-3"),
         pytest.param(["--radius", "0km"], "--radius", id="radius-0km"),
         pytest.param(["--radius=-5km"], "--radius", id="radius=-5km"),
         pytest.param(["--radius", "-5km"], "--radius", id="radius -5km"),
         pytest.param(["--radius", "abc"], "--radius", id="radius-abc"),
         pytest.param(["--radius-field", "reach"], "reach_m", id="unknown-radius-field"),
+        pytest.param(["--radius-field", "reach"], "--radius-field 'reach' is not a field", id="radius-field-named"),
     ],
 )
 def test_coverage__bad_zone_points_one_line_exit_2(capsys, extra, needle):
-    rc, out, err = run(capsys, [*CLINICS, "-n", "100", *extra])
+    rc, out, err = run_cli(capsys, [*CLINICS, "-n", "100", *extra])
     assert rc == 2 and out == ""
     assert err.count("\n") == 1 and "Traceback" not in err
     assert needle in err
+    assert not re.search(PARAMETER_NAMES, err), err
+
+
+@pytest.mark.parametrize(
+    "argv, needle",
+    [
+        pytest.param(["coverage", str(GPKG), str(GPKG), "--layer", "districts", "--zones-layer", "service_zones",
+                      "--zones-id-field", "nope"], "--zones-id-field 'nope' is not a field", id="zones-id-field"),
+        pytest.param(["coverage", str(GPKG), str(GPKG), "--layer", "districts", "--id-field", "nope",
+                      "--zones-layer", "service_zones"], "--id-field 'nope' is not a field", id="regions-id-field"),
+        pytest.param(["coverage", str(GPKG), str(GPKG), "--layer", "districts", "--zones-layer", "service_zones",
+                      "--crs", "EPSG:3857"], "--crs EPSG:3857: not equal-area", id="crs-not-equal-area"),
+    ],
+)
+def test_coverage__library_errors_name_the_flags(capsys, argv, needle):
+    # the zones' id field is the library's id_field too, fed by --zones-id-field: the message must
+    # name the flag the user typed, not the parameter or the regions' flag
+    rc, out, err = run_cli(capsys, [*argv, "-n", "100"])
+    assert rc == 2 and out == ""
+    assert err.count("\n") == 1 and err.startswith("areamc: error: ")
+    assert needle in err
+    assert not re.search(PARAMETER_NAMES, err), err
+    if "zones-id-field" in needle:
+        assert " --id-field" not in err
 
 
 @pytest.mark.parametrize("case", ["missing", "negative"])
 def test_coverage__bad_radius_values_in_a_field(capsys, bad_points, case):
-    rc, out, err = run(capsys, ["coverage", str(GPKG), bad_points[case], "--layer", "districts",
-                                "--zones-id-field", "site", "--radius-field", "reach", "-n", "100"])
+    rc, out, err = run_cli(capsys, ["coverage", str(GPKG), bad_points[case], "--layer", "districts",
+                                    "--zones-id-field", "site", "--radius-field", "reach", "-n", "100"])
     assert rc == 2 and out == ""
     assert err.count("\n") == 1 and "Traceback" not in err
     assert "feature b" in err and "reach" in err
+
+
+def test_coverage__zones_without_crs_name_the_zones_flag(capsys, tmp_path):
+    path = tmp_path / "nocrs.shp"
+    schema = {"geometry": "Polygon", "properties": {"n": "str"}}
+    with fiona.open(path, "w", driver="ESRI Shapefile", schema=schema) as dst:
+        dst.write({"geometry": mapping(shapely.box(10.4, 47.1, 10.6, 47.3)), "properties": {"n": "a"}})  # no .prj
+    cases = (([], "state it with --zones-input-crs"), (["--zones-input-crs", "bogus"], "--zones-input-crs"))
+    for extra, needle in cases:
+        rc, out, err = run_cli(capsys, ["coverage", str(GPKG), str(path), "--layer", "districts", "-n", "100", *extra])
+        assert rc == 2 and out == "" and err.count("\n") == 1
+        assert needle in err and " --input-crs" not in err, err
+        assert not re.search(PARAMETER_NAMES, err), err
 
 
 # --- end to end ----------------------------------------------------------------------------------

@@ -3,7 +3,7 @@
 Expected numbers come from outside areamc:
 
 * the covered population share by areal weighting (Goodchild & Lam 1980, Geo-Processing
-  1:297-312; REFERENCES §7) with shapely 2 (GEOS), U the union of the zones:
+  1:297-312 [memory]) with shapely 2 (GEOS), U the union of the zones:
   share = Σ c_i |b_i ∩ R ∩ U| / |b_i|  /  Σ c_i |b_i ∩ R| / |b_i|;
   geometries are read here with fiona, densified with ``shapely.segmentize`` at the tool's
   default 1 km step (1000/111 320 degrees on lon/lat layers, common practice) and projected
@@ -38,10 +38,11 @@ from shapely.geometry import box, mapping, shape
 
 from areamc.cli import main
 
+from conftest import overlay_total, run_cli, run_json, to_plane
+
 ROOT = Path(__file__).resolve().parents[1]
 GPKG = ROOT / "sample_data" / "vale_county.gpkg"
 TIF = ROOT / "sample_data" / "vale_population.tif"
-STEP_DEG = 1000.0 / 111_320.0  # the tool's default --densify of 1 km, in degrees
 PLANE = "+proj=laea +lat_0=47 +lon_0=10 +datum=WGS84 +units=m +no_defs"
 BASE = ["coverage", str(GPKG), str(GPKG), "--layer", "districts", "--id-field", "district_id",
         "--zones-layer", "service_zones", "--zones-id-field", "zone_id"]
@@ -54,42 +55,12 @@ CONF = "0.999"
 # --- helpers -----------------------------------------------------------------------------------
 
 
-def run(capsys, argv):
-    rc = main(argv)
-    out, err = capsys.readouterr()
-    return rc, out, err
-
-
-def run_json(capsys, argv, expect=0):
-    rc, out, err = run(capsys, [*argv, "--format", "json", "-q"])
-    assert rc == expect, err
-    return json.loads(out)
-
-
 def read(path, layer=None, id_field=None):
     with fiona.open(path, layer=layer) as src:
         feats = list(src)
         crs = pyproj.CRS.from_user_input(src.crs.to_wkt())
     ids = [str(f.properties[id_field]) if id_field else str(f.id) for f in feats]
     return ids, [shape(f.geometry) for f in feats], [dict(f.properties) for f in feats], crs
-
-
-def to_plane(geoms, src_crs, doc):
-    step = STEP_DEG if src_crs.is_geographic else 1000.0
-    plane = pyproj.CRS.from_wkt(doc["equal_area_crs"]["wkt"])
-    trans = pyproj.Transformer.from_crs(src_crs, plane, always_xy=True)
-
-    def move(xy):
-        return np.column_stack(trans.transform(xy[:, 0], xy[:, 1]))
-
-    return np.array([shapely.transform(shapely.segmentize(g, step), move) for g in geoms], dtype=object)
-
-
-def weighted(units, counts, geom) -> float:
-    """Σ c_i |u_i ∩ geom| / |u_i| (Goodchild & Lam 1980)."""
-    keep = np.asarray(counts) > 0
-    units, counts = units[keep], np.asarray(counts, float)[keep]
-    return float(np.sum(counts * shapely.area(shapely.intersection(units, geom)) / shapely.area(units)))
 
 
 def sample_truth(doc, units, counts):
@@ -99,14 +70,14 @@ def sample_truth(doc, units, counts):
     union = shapely.union_all(to_plane(zgeoms, zcrs, doc))
     out = {}
     for rid, region in zip(dids, to_plane(dgeoms, dcrs, doc)):
-        total = weighted(units, counts, region)
-        out[rid] = (total, weighted(units, counts, shapely.intersection(region, union)) / total)
+        total = overlay_total(units, counts, region)
+        out[rid] = (total, overlay_total(units, counts, shapely.intersection(region, union)) / total)
     return out
 
 
 def sample_blocks(doc):
     _, bgeoms, bprops, bcrs = read(GPKG, "blocks")
-    return to_plane(bgeoms, bcrs, doc), [p["population"] for p in bprops]
+    return np.array(to_plane(bgeoms, bcrs, doc), dtype=object), [p["population"] for p in bprops]
 
 
 def raster_cells(doc, pieces=8):
@@ -188,8 +159,8 @@ def test_blocks__plain_sampling_also_holds_the_exact_share(capsys, blocks_doc):
 
 
 def test_raster__population_share_by_cell_fractions(capsys):
-    rc, out, err = run(capsys, [*BASE, "--density", str(TIF), "-n", "40000", "--seed", "23", "--confidence", CONF,
-                                "--format", "json", "-q"])
+    rc, out, err = run_cli(capsys, [*BASE, "--density", str(TIF), "-n", "40000", "--seed", "23", "--confidence",
+                                    CONF, "--format", "json", "-q"])
     assert rc == 0, err
     assert "10 nodata cell(s)" in err
     doc = json.loads(out)
@@ -206,8 +177,8 @@ def test_raster__population_share_by_cell_fractions(capsys):
 @pytest.mark.parametrize("claim", [0.5, 0.3])
 def test_blocks__population_claim_verdicts_follow_the_exact_shares(capsys, blocks_doc, claim):
     _, truth = blocks_doc
-    rc, out, err = run(capsys, [*BASE, *BLOCKS, "--claim", str(claim), "--fail-on-shortfall", "-n", "40000",
-                                "--seed", "24", "--format", "json", "-q"])
+    rc, out, err = run_cli(capsys, [*BASE, *BLOCKS, "--claim", str(claim), "--fail-on-shortfall", "-n", "40000",
+                                    "--seed", "24", "--format", "json", "-q"])
     rows = json.loads(out)["results"]
     verdicts = {}
     for r in rows:
@@ -243,7 +214,7 @@ def test_blocks__clinic_reach_as_zones(capsys):
     units, counts = sample_blocks(doc)
     dids, dgeoms, _, dcrs = read(GPKG, "districts", "district_id")
     for rid, region in zip(dids, to_plane(dgeoms, dcrs, doc)):
-        share = weighted(units, counts, shapely.intersection(region, union)) / weighted(units, counts, region)
+        share = overlay_total(units, counts, shapely.intersection(region, union)) / overlay_total(units, counts, region)
         (row,) = [r for r in doc["results"] if r["id"] == rid]
         assert row["exact_population_share"] == pytest.approx(share, rel=1e-9)
         assert row["population_share_ci_low"] <= share <= row["population_share_ci_high"]
@@ -301,7 +272,7 @@ def test_scene__end_to_end_subprocess_exit_status(scene):
 
 def test_scene__bad_count_field_exits_2(capsys, scene):
     argv = [a if a != "pop" else "people" for a in scene]
-    rc, out, err = run(capsys, argv)
+    rc, out, err = run_cli(capsys, argv)
     assert rc == 2 and out == ""
     lines = [line for line in err.splitlines() if line.strip()]
     assert len(lines) == 1 and lines[0].startswith("areamc: error:") and "people" in lines[0]

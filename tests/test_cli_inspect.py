@@ -18,7 +18,6 @@ import os
 import shutil
 import subprocess
 import sys
-import warnings
 from collections import Counter
 from pathlib import Path
 
@@ -29,8 +28,7 @@ import pytest
 import shapely
 from shapely.geometry import LineString, Polygon, box, mapping, shape
 
-from areamc.cli import main
-from areamc.load import AreamcWarning
+from conftest import run_cli, run_json
 
 ROOT = Path(__file__).resolve().parents[1]
 SAMPLE = ROOT / "sample_data"
@@ -65,27 +63,14 @@ AREAMC = [_script] if _script else [sys.executable, "-c", "import sys; from area
 # --------------------------------------------------------------------------- helpers
 
 
-def run_main(argv, capsys):
-    """Run ``areamc.cli.main(argv)`` in-process with a fresh process's warning filters."""
-    capsys.readouterr()
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", DeprecationWarning)
-        warnings.simplefilter("ignore", PendingDeprecationWarning)
-        warnings.simplefilter("always", AreamcWarning)
-        status = main([str(a) for a in argv])
-    out, err = capsys.readouterr()
-    return status, out, err
-
-
 def inspect_json(argv, capsys) -> dict:
-    status, out, err = run_main(["inspect", *argv, "--format", "json"], capsys)
-    assert status == 0, err
-    doc = json.loads(out)
+    """The one record of ``areamc inspect ARGV --format json`` (in-process, conftest's run_json)."""
+    doc = run_json(capsys, [str(a) for a in ["inspect", *argv]])
     assert len(doc["results"]) == 1
     return doc["results"][0]
 
 
-def run_cli(*args, module: bool = False) -> subprocess.CompletedProcess:
+def run_script(*args, module: bool = False) -> subprocess.CompletedProcess:
     cmd = [sys.executable, "-m", "areamc"] if module else list(AREAMC)
     return subprocess.run([*cmd, *map(str, args)], capture_output=True, text=True, timeout=120)
 
@@ -198,7 +183,7 @@ def test_inspect_default_layer_is_the_first(capsys):
 
 
 def test_inspect_utm_file_end_to_end():
-    proc = run_cli("inspect", UTM, "--format", "json")
+    proc = run_script("inspect", UTM, "--format", "json")
     assert proc.returncode == 0, proc.stderr
     doc = json.loads(proc.stdout)
     assert doc["tool"] == "areamc" and doc["units"] == "m2"
@@ -206,13 +191,13 @@ def test_inspect_utm_file_end_to_end():
 
 
 def test_inspect_point_layer_with_python_dash_m():
-    proc = run_cli("inspect", GPKG, "--layer", "clinics", "--format", "json", module=True)
+    proc = run_script("inspect", GPKG, "--layer", "clinics", "--format", "json", module=True)
     assert proc.returncode == 0, proc.stderr
     check_info(json.loads(proc.stdout)["results"][0], GPKG, "clinics")
 
 
 def test_inspect_table_names_the_totals(capsys):
-    status, out, err = run_main(["inspect", GPKG, "--layer", "districts", "--units", "km2"], capsys)
+    status, out, err = run_cli(capsys, map(str, ["inspect", GPKG, "--layer", "districts", "--units", "km2"]))
     assert status == 0, err
     lines = dict(line.split(":", 1) for line in out.splitlines() if ":" in line)
     assert lines["layer"].strip() == "districts"
@@ -233,7 +218,7 @@ def test_inspect_units(capsys, unit):
 
 def test_inspect_csv_has_the_json_fields(capsys):
     info = inspect_json([SHP], capsys)
-    status, out, err = run_main(["inspect", SHP, "--format", "csv"], capsys)
+    status, out, err = run_cli(capsys, map(str, ["inspect", SHP, "--format", "csv"]))
     assert status == 0, err
     rows = list(csv.DictReader(io.StringIO(out)))
     assert len(rows) == 1
@@ -244,7 +229,7 @@ def test_inspect_csv_has_the_json_fields(capsys):
 
 def test_inspect_output_file_format_from_extension(tmp_path, capsys):
     target = tmp_path / "info.json"
-    status, out, err = run_main(["inspect", GEOJSON, "--output", target], capsys)
+    status, out, err = run_cli(capsys, map(str, ["inspect", GEOJSON, "--output", target]))
     assert status == 0, err
     assert out == ""
     info = json.loads(target.read_text())["results"][0]
@@ -260,7 +245,7 @@ def test_inspect_counts_repaired_and_empty_geometries(tmp_path, capsys):
         dst.write({"geometry": mapping(box(10.40, 47.10, 10.46, 47.15)), "properties": {"name": "square"}})
         dst.write({"geometry": mapping(bow), "properties": {"name": "bowtie"}})
         dst.write({"geometry": None, "properties": {"name": "nothing"}})
-    status, out, err = run_main(["inspect", path, "--format", "json"], capsys)
+    status, out, err = run_cli(capsys, map(str, ["inspect", path, "--format", "json"]))
     assert status == 0, err
     info = json.loads(out)["results"][0]
     assert info["features"] == 3 and info["invalid"] == 1 and info["empty"] == 1
@@ -302,7 +287,10 @@ BAD_INSPECT_CASES = [
     ("linestrings", ["{lines}"], ["{lines}"]),
     ("no-crs", ["{nocrs}"], ["{nocrs}", "--input-crs"]),
     ("unknown-id-field", ["{gpkg}", "--id-field", "no_such_field"], ["{gpkg}", "no_such_field"]),
-    ("crs-not-equal-area", ["{gpkg}", "--crs", "EPSG:3857"], ["--crs", "EPSG:3857"]),
+    ("crs-not-equal-area", ["{gpkg}", "--crs", "EPSG:3857"], ["--crs EPSG:3857: not equal-area"]),
+    ("points-crs-not-equal-area", ["{gpkg}", "--layer", "clinics", "--crs", "EPSG:3857"],
+     ["--crs EPSG:3857: not equal-area"]),
+    ("unknown-id-field-named", ["{gpkg}", "--id-field", "no_such_field"], ["--id-field 'no_such_field'"]),
     ("crs-geographic-points", ["{gpkg}", "--layer", "clinics", "--crs", "EPSG:4326"], ["--crs"]),
     ("crs-unknown", ["{gpkg}", "--crs", "not a crs"], ["--crs"]),
     ("unknown-units", ["{gpkg}", "--units", "furlong2"], ["--units"]),
@@ -314,7 +302,7 @@ def test_inspect_bad_input(bad_files, tmp_path, capsys, argv, needles):
     fill = {k: str(v) for k, v in bad_files.items()}
     argv = [a.format(**fill) for a in argv]
     before = fingerprint(bad_files["folder"])
-    status, out, err = run_main(["inspect", *argv, "--output", tmp_path / "info.json"], capsys)
+    status, out, err = run_cli(capsys, map(str, ["inspect", *argv, "--output", tmp_path / "info.json"]))
     assert_one_line_error(status, out, err, *[n.format(**fill) for n in needles])
     assert list(tmp_path.iterdir()) == []
     assert fingerprint(bad_files["folder"]) == before

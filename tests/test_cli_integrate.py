@@ -3,7 +3,7 @@
 Expected numbers come from outside areamc:
 
 * block totals by areal weighting (Goodchild & Lam 1980, Geo-Processing 1:297-312;
-  REFERENCES §7), Σ count |block ∩ region| / |block|, with shapely 2 (GEOS) on the files' own
+  [memory]), Σ count |block ∩ region| / |block|, with shapely 2 (GEOS) on the files' own
   geometries read here with fiona, densified with ``shapely.segmentize`` at the tool's default
   1 km step (1000/111 320 degrees on lon/lat layers, common practice) and projected with
   pyproj onto the plane the tool reports in its JSON metadata; on the sample data every block
@@ -31,16 +31,14 @@ import numpy as np
 import pyproj
 import pytest
 import rasterio
-import rasterio.transform
 import shapely
 from shapely.geometry import Polygon, box, mapping, shape
 
-from areamc.cli import main
+from conftest import overlay_total, run_cli, run_json, to_plane, write_raster
 
 ROOT = Path(__file__).resolve().parents[1]
 GPKG = ROOT / "sample_data" / "vale_county.gpkg"
 TIF = ROOT / "sample_data" / "vale_population.tif"
-STEP_DEG = 1000.0 / 111_320.0  # the tool's default --densify of 1 km, in degrees
 PLANE = "+proj=laea +lat_0=47 +lon_0=10 +datum=WGS84 +units=m +no_defs"
 DISTRICTS = ["integrate", str(GPKG), "--layer", "districts", "--id-field", "district_id"]
 BLOCKS = ["--density", str(GPKG), "--density-layer", "blocks", "--count-field", "population"]
@@ -51,18 +49,6 @@ CONF = "0.999"
 # --- helpers -----------------------------------------------------------------------------------
 
 
-def run(capsys, argv):
-    rc = main(argv)
-    out, err = capsys.readouterr()
-    return rc, out, err
-
-
-def run_json(capsys, argv):
-    rc, out, err = run(capsys, [*argv, "--format", "json", "-q"])
-    assert rc == 0, err
-    return json.loads(out), err
-
-
 def read(path, layer=None, id_field=None):
     """(ids, shapely geometries, properties, CRS) of a layer, read with fiona."""
     with fiona.open(path, layer=layer) as src:
@@ -70,24 +56,6 @@ def read(path, layer=None, id_field=None):
         crs = pyproj.CRS.from_user_input(src.crs.to_wkt())
     ids = [str(f.properties[id_field]) if id_field else str(f.id) for f in feats]
     return ids, [shape(f.geometry) for f in feats], [dict(f.properties) for f in feats], crs
-
-
-def to_plane(geoms, src_crs, doc, step=None):
-    """Densify in the source CRS (1 km), then project to the plane named in the JSON metadata."""
-    if step is None:
-        step = STEP_DEG if src_crs.is_geographic else 1000.0
-    plane = pyproj.CRS.from_wkt(doc["equal_area_crs"]["wkt"])
-    trans = pyproj.Transformer.from_crs(src_crs, plane, always_xy=True)
-
-    def move(xy):
-        return np.column_stack(trans.transform(xy[:, 0], xy[:, 1]))
-
-    return np.array([shapely.transform(shapely.segmentize(g, step), move) for g in geoms], dtype=object)
-
-
-def overlay_total(blocks, counts, region) -> float:
-    inter = shapely.area(shapely.intersection(blocks, region))
-    return float(np.sum(np.asarray(counts, float) * inter / shapely.area(blocks)))
 
 
 def raster_cells(path, doc, pieces=8):
@@ -128,17 +96,6 @@ def write_layer(path, geoms, crs, props=None, schema_props=None, layer="regions"
     return str(path)
 
 
-def write_raster(path, data, *, west, north, dx, crs="EPSG:4326"):
-    data = np.asarray(data, dtype="float32")
-    profile = dict(driver="GTiff", height=data.shape[0], width=data.shape[1], count=1, dtype="float32",
-                   transform=rasterio.transform.from_origin(west, north, dx, dx))
-    if crs is not None:
-        profile["crs"] = crs
-    with rasterio.open(path, "w", **profile) as dst:
-        dst.write(data, 1)
-    return str(path)
-
-
 def check_rows(rows, refs, rel_exact):
     assert {r["id"] for r in rows} == set(refs)
     for r in rows:
@@ -147,7 +104,13 @@ def check_rows(rows, refs, rel_exact):
         assert r["exact"] == pytest.approx(ref, rel=rel_exact), r
         assert r["ci_low"] - 1e-9 * ref <= ref <= r["ci_high"] + 1e-9 * ref, (r, ref)
         assert abs(r["estimate"] - ref) <= 4 * r["stderr"] + rel_exact * ref, (r, ref)
-        assert r["z"] is not None and abs(r["z"]) <= 4
+        assert r["z"] is not None and abs(r["z"]) <= 4 and not r["flagged"]
+        if r["method"] == "uniform":
+            # a mean estimate: z is the deviation from the exact total in standard errors (common practice)
+            assert r["z"] == pytest.approx((r["estimate"] - r["exact"]) / r["stderr"], rel=1e-9)
+        elif r["estimate"] != r["exact"]:
+            # importance rows: a binomial mid-p score (Lancaster 1961), signed like the deviation
+            assert np.sign(r["z"]) == np.sign(r["estimate"] - r["exact"])
 
 
 def sample_block_sums():
@@ -164,7 +127,7 @@ def sample_block_sums():
 
 @pytest.mark.parametrize("extra, method", [([], "importance"), (["--no-importance"], "uniform")])
 def test_blocks__sample_districts_total_their_blocks(capsys, extra, method):
-    doc, _ = run_json(capsys, [*DISTRICTS, *BLOCKS, *extra, "-n", "40000", "--seed", "5", "--confidence", CONF])
+    doc = run_json(capsys, [*DISTRICTS, *BLOCKS, *extra, "-n", "40000", "--seed", "5", "--confidence", CONF])
     refs = sample_block_sums()
     assert sum(refs.values()) > 100_000  # the sample holds about 150,000 people (sample_data/README.md)
     check_rows(doc["results"], refs, rel_exact=1e-6)
@@ -179,7 +142,7 @@ def test_blocks__region_file_cutting_blocks_and_units(capsys, tmp_path):
     ring = Polygon(np.column_stack([10.62 + 0.07 * np.cos(t), 47.26 + 0.045 * np.sin(t)]))
     regions = [ring, box(10.35, 47.15, 10.55, 47.3)]
     path = write_layer(tmp_path / "regions.gpkg", regions, "EPSG:4326")
-    doc, _ = run_json(capsys, ["integrate", path, *BLOCKS, "-n", "60000", "--seed", "8", "--confidence", CONF,
+    doc = run_json(capsys, ["integrate", path, *BLOCKS, "-n", "60000", "--seed", "8", "--confidence", CONF,
                                "--units", "km2"])
     _, bgeoms, bprops, bcrs = read(GPKG, "blocks")
     blocks = to_plane(bgeoms, bcrs, doc)
@@ -207,6 +170,27 @@ def test_blocks__end_to_end_subprocess(tmp_path):
     check_rows(doc["results"], refs, rel_exact=1e-6)
 
 
+@pytest.mark.parametrize("extra, method", [([], "importance"), (["--no-importance"], "uniform")])
+def test_blocks__relative_tolerance_two_stages(capsys, extra, method):
+    # --tolerance 2%: a pilot to within 2x the target, then a fresh final batch sized from it; the
+    # final half-width is near 2% of the total, random, and may exceed it by a few percent
+    doc = run_json(capsys, [*DISTRICTS, *BLOCKS, *extra, "--tolerance", "2%", "--seed", "9", "--confidence", CONF])
+    assert doc["stop"]["tolerance_relative"] == pytest.approx(0.02) and doc["stop"]["two_stage"] is True
+    check_rows(doc["results"], sample_block_sums(), rel_exact=1e-6)
+    for r in doc["results"]:
+        assert r["method"] == method
+        assert r["stop_reason"] == "target" and r["pilot_points"] > 0
+        assert (r["ci_high"] - r["ci_low"]) / 2 <= 1.3 * 0.02 * r["estimate"]
+
+
+def test_blocks__table_footer_says_no_row_is_flagged(capsys):
+    doc = run_json(capsys, [*DISTRICTS, *BLOCKS, "-n", "20000", "--seed", "5", "--confidence", CONF])
+    check_rows(doc["results"], sample_block_sums(), rel_exact=1e-6)  # none flagged
+    rc, out, err = run_cli(capsys, [*DISTRICTS, *BLOCKS, "-n", "20000", "--seed", "5", "--confidence", CONF, "-q"])
+    assert rc == 0, err
+    assert out.rstrip().endswith("no row flagged: every estimate within 4 standard errors of the exact total")
+
+
 # --- rasters -----------------------------------------------------------------------------------
 
 
@@ -217,22 +201,22 @@ def test_raster__region_holding_the_sample_grid(capsys, tmp_path):
         ref = float(data.astype(float).sum())
         n_nodata = int(data.mask.sum())
     assert n_nodata == 10  # sample_data/README.md
-    rc, out, err = run(capsys, ["integrate", path, "--density", str(TIF), "-n", "20000", "--seed", "2",
-                                "--format", "json", "-q"])
+    rc, out, err = run_cli(capsys, ["integrate", path, "--density", str(TIF), "-n", "20000", "--seed", "2",
+                                    "--format", "json", "-q"])
     assert rc == 0, err
     row = json.loads(out)["results"][0]
     assert row["method"] == "importance"
     assert row["estimate"] == pytest.approx(ref, rel=1e-9)  # every draw lands in the region
     assert row["exact"] == pytest.approx(ref, rel=1e-9)
     assert "10 nodata cell(s)" in err and err.startswith("areamc: warning:")
-    doc, _ = run_json(capsys, ["integrate", path, "--density", str(TIF), "-n", "200000", "--seed", "2",
+    doc = run_json(capsys, ["integrate", path, "--density", str(TIF), "-n", "200000", "--seed", "2",
                                "--no-importance", "--confidence", CONF])
     check_rows(doc["results"], {doc["results"][0]["id"]: ref}, rel_exact=1e-9)
     assert doc["results"][0]["method"] == "uniform"
 
 
 def test_raster__sample_districts_by_cell_fractions(capsys):
-    doc, _ = run_json(capsys, [*DISTRICTS, "--density", str(TIF), "-n", "60000", "--seed", "3",
+    doc = run_json(capsys, [*DISTRICTS, "--density", str(TIF), "-n", "60000", "--seed", "3",
                                "--confidence", CONF])
     dids, dgeoms, _, dcrs = read(GPKG, "districts", "district_id")
     counts, cells = raster_cells(TIF, doc)
@@ -243,11 +227,12 @@ def test_raster__sample_districts_by_cell_fractions(capsys):
 
 
 def test_raster__constant_density_per_km2(capsys, tmp_path):
-    tif = write_raster(tmp_path / "flat.tif", np.full((50, 80), 120.0), west=10.2, north=47.5, dx=0.01)
+    tif = write_raster(tmp_path / "flat.tif", np.full((50, 80), 120.0), west=10.2, north=47.5, dx=0.01,
+                       dtype="float32")
     t = np.linspace(0, 2 * np.pi, 90, endpoint=False)
     region = Polygon(np.column_stack([10.6 + 0.2 * np.cos(t), 47.25 + 0.1 * np.sin(t) * (1 + 0.3 * np.cos(t))]))
     path = write_layer(tmp_path / "r.gpkg", [region], "EPSG:4326")
-    doc, _ = run_json(capsys, ["integrate", path, "--density", tif, "--raster-values", "per-km2", "-n", "100000",
+    doc = run_json(capsys, ["integrate", path, "--density", tif, "--raster-values", "per-km2", "-n", "100000",
                                "--seed", "4", "--confidence", CONF])
     planar = to_plane([region], pyproj.CRS("EPSG:4326"), doc)[0]
     row = doc["results"][0]
@@ -261,7 +246,7 @@ def test_raster__constant_density_per_km2(capsys, tmp_path):
 def test_expression__polynomial_over_a_rectangle_in_the_plane(capsys, tmp_path):
     x0, x1, y0, y1 = 1000.0, 3000.0, 2000.0, 5000.0
     path = write_layer(tmp_path / "rect.gpkg", [box(x0, y0, x1, y1)], PLANE)
-    doc, _ = run_json(capsys, ["integrate", path, "--density", "(x**2 + 3*y) * 1e-12", "--crs", PLANE,
+    doc = run_json(capsys, ["integrate", path, "--density", "(x**2 + 3*y) * 1e-12", "--crs", PLANE,
                                "-n", "200000", "--seed", "6", "--confidence", CONF])
     # ∫∫ (x² + 3y) dx dy = (x1³ − x0³)(y1 − y0)/3 + 3(y1² − y0²)(x1 − x0)/2 (calculus), x 1e-12
     exact = ((x1**3 - x0**3) * (y1 - y0) / 3 + 3 * (y1**2 - y0**2) * (x1 - x0) / 2) * 1e-12
@@ -300,9 +285,9 @@ BAD = {
                               "--count-field"),
     "raster unreadable": (lambda tp: ["--density", _not_a_raster(tp)], "not a readable raster"),
     "raster without CRS": (lambda tp: ["--density", write_raster(tp / "bare.tif", np.ones((5, 5)), west=10.3, north=47.3,
-                                                                 dx=0.01, crs=None)], "no CRS"),
+                                                                 dx=0.01, crs=None, dtype="float32")], "no CRS"),
     "raster elsewhere": (lambda tp: ["--density", write_raster(tp / "far.tif", np.ones((5, 5)), west=-60, north=-10,
-                                                               dx=0.01)], "does not overlap"),
+                                                               dx=0.01, dtype="float32")], "does not overlap"),
     "raster missing": (lambda tp: ["--density", str(tp / "missing.tif")], "no such file"),
     "syntax error": (lambda tp: ["--density", "x +* 2"], "syntax error"),
     "unknown name": (lambda tp: ["--density", "population * 2"], "'population'"),
@@ -318,7 +303,7 @@ BAD = {
 def test_bad_input__one_line_exit_2(capsys, tmp_path, case):
     make, expected = BAD[case]
     # the districts straddle the plane's central meridian, so x < 0 over their west half
-    rc, out, err = run(capsys, [*DISTRICTS, *make(tmp_path), "-n", "5000", "--seed", "1"])
+    rc, out, err = run_cli(capsys, [*DISTRICTS, *make(tmp_path), "-n", "5000", "--seed", "1"])
     assert rc == 2, (case, err)
     assert out == ""
     lines = [line for line in err.splitlines() if line.strip()]

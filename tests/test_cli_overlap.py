@@ -10,7 +10,9 @@ Expected numbers come from outside areamc:
   practice), by shapely;
 * geodesic circles for facility points from ``pyproj.Geod(ellps="WGS84").fwd`` (Karney 2013,
   J. Geodesy 87:43-55), built here;
-* geodesic areas from ``pyproj.Geod.geometry_area_perimeter`` (Karney 2013).
+* geodesic areas from ``pyproj.Geod.geometry_area_perimeter`` (Karney 2013);
+* the deviation ``z`` from the two-sided mid-p binomial tail (Lancaster 1961, JASA 56:223-234),
+  with ``scipy.stats.binom``.
 
 Estimates are held to their Wilson intervals (Wilson 1927) at confidence 0.999 and to
 4 standard errors (common practice).  The sample data (sample_data/) is invented; its numbers are
@@ -24,6 +26,7 @@ import io
 import itertools
 import json
 import os
+import re
 import shutil
 import subprocess
 import sys
@@ -39,11 +42,12 @@ from shapely.geometry.polygon import orient
 
 from areamc.cli import main
 
+from conftest import STEP_DEG, run_cli, run_json, to_plane, mid_p_z
+
 ROOT = Path(__file__).resolve().parents[1]
 GPKG = ROOT / "sample_data" / "vale_county.gpkg"
 ZONES = [str(GPKG), "--layer", "service_zones", "--id-field", "zone_id"]
 GEOD = pyproj.Geod(ellps="WGS84")  # WGS84 (NIMA TR8350.2), built here on purpose
-STEP_DEG = 1000.0 / 111_320.0  # the tool's default --densify of 1 km, in degrees
 REQUIRED = ("id_a", "id_b", "estimate", "stderr", "ci_low", "ci_high", "share_a", "share_b", "exact_planar", "z")
 
 _script = shutil.which("areamc", path=os.path.dirname(sys.executable)) or shutil.which("areamc")
@@ -59,24 +63,6 @@ def read(path, layer=None, id_field=None):
         crs = pyproj.CRS.from_user_input(src.crs.to_wkt())
     ids = [str(f.properties[id_field]) if id_field else str(f.id) for f in feats]
     return ids, [shape(f.geometry) for f in feats], crs
-
-
-def to_plane(geoms, src_crs, doc, step=STEP_DEG):
-    """Densify in the source CRS, then project to the plane named in the JSON metadata."""
-    plane = pyproj.CRS.from_wkt(doc["equal_area_crs"]["wkt"])
-    trans = pyproj.Transformer.from_crs(src_crs, plane, always_xy=True)
-
-    def move(xy):
-        return np.column_stack(trans.transform(xy[:, 0], xy[:, 1]))
-
-    return [shapely.transform(shapely.segmentize(g, step), move) for g in geoms]
-
-
-def run_json(capsys, argv):
-    rc = main([*argv, "--format", "json", "-q"])
-    out, err = capsys.readouterr()
-    assert rc == 0, err
-    return json.loads(out)
 
 
 def exact_pair_areas(ids_a, geoms_a, ids_b=None, geoms_b=None):
@@ -105,6 +91,9 @@ def check_rows(rows, exact, area_a, area_b):
         assert abs(r["estimate"] - ref) <= 4 * r["stderr"], r
         assert r["share_a"] == pytest.approx(r["estimate"] / area_a[r["id_a"]], rel=1e-7)
         assert r["share_b"] == pytest.approx(r["estimate"] / area_b[r["id_b"]], rel=1e-7)
+        # z: mid-p binomial score of the hits at p0 = shapely's overlap / the pair's box (Lancaster 1961)
+        assert r["z"] == pytest.approx(mid_p_z(r["hits"], r["points"], ref / r["box_area"]), rel=1e-6, abs=1e-6)
+        assert not r["flagged"]
 
 
 def geodesic_circle_here(lon, lat, radius_m, n=256):
@@ -163,12 +152,26 @@ def test_overlap__one_layer_multiplicity_profile(one_layer_doc, service_zones):
     profile = {m["k"]: m for m in one_layer_doc["multiplicity"]}
     assert one_layer_doc["exact_multiplicity"] == "computed"
     assert {1, 2, 3} <= set(profile)
+    # the profile is sampled in the bounding box of all zones
+    x0, y0, x1, y1 = shapely.total_bounds(planar)
+    box_area, n = (x1 - x0) * (y1 - y0), 40000
+    def at_least(k):  # union of all k-fold intersections (common practice)
+        return shapely.union_all([shapely.intersection_all(list(c)) for c in itertools.combinations(planar, k)]).area
+
     for k in (1, 2, 3):
-        least = shapely.union_all([shapely.intersection_all(list(c)) for c in itertools.combinations(planar, k)]).area
+        least = at_least(k)
         m = profile[k]
-        assert m["exact_at_least"] == pytest.approx(least, rel=1e-6)
-        assert m["at_least_ci_low"] <= least <= m["at_least_ci_high"], m
-        assert abs(m["at_least"] - least) <= 4 * m["at_least_stderr"]
+        assert m["exact_area_at_least"] == pytest.approx(least, rel=1e-6)
+        assert m["area_at_least_ci_low"] <= least <= m["area_at_least_ci_high"], m
+        assert abs(m["area_at_least"] - least) <= 4 * m["area_at_least_stderr"]
+        # exactly k = at least k minus at least k + 1 (common practice)
+        more = at_least(k + 1)
+        assert m["exact_area_exactly"] == pytest.approx(least - more, rel=1e-6)
+        assert m["area_exactly_ci_low"] <= least - more <= m["area_exactly_ci_high"], m
+        # z of the at-least-k area: mid-p binomial score (Lancaster 1961) of the hits in the box
+        hits = round(m["area_at_least"] / box_area * n)
+        assert m["z"] == pytest.approx(mid_p_z(hits, n, least / box_area), rel=1e-5, abs=1e-5)
+        assert not m["flagged"]
 
 
 def test_overlap__two_layers_cross_pairs(capsys, service_zones):
@@ -198,8 +201,7 @@ def test_overlap__no_overlapping_pairs_says_so(capsys, tmp_path):
     with fiona.open(path, "w", driver="GPKG", schema=schema, crs="EPSG:4326") as dst:
         for name, geom in (("a", box(10.0, 45.0, 10.1, 45.1)), ("b", box(10.3, 45.0, 10.4, 45.1))):
             dst.write({"geometry": mapping(geom), "properties": {"name": name}})
-    rc = main(["overlap", str(path), "-n", "1000", "--seed", "1", "-q"])
-    out, err = capsys.readouterr()
+    rc, out, err = run_cli(capsys, ["overlap", str(path), "-n", "1000", "--seed", "1", "-q"])
     assert rc == 0 and err == ""
     assert "no overlapping pairs" in out
     doc = run_json(capsys, ["overlap", str(path), "-n", "1000", "--seed", "1"])
@@ -210,9 +212,8 @@ def test_overlap__a_partition_has_no_overlapping_pairs(capsys):
     """The sample districts partition the county: shapely finds no overlap of positive area."""
     did, dgeoms, _ = read(GPKG, "districts", "district_id")
     assert exact_pair_areas(did, dgeoms) == {}
-    rc = main(["overlap", str(GPKG), "--layer", "districts", "--id-field", "district_id", "-n", "2000",
-               "--seed", "1", "-q", "--no-profile"])
-    out, _ = capsys.readouterr()
+    rc, out, _ = run_cli(capsys, ["overlap", str(GPKG), "--layer", "districts", "--id-field", "district_id", "-n",
+                                  "2000", "--seed", "1", "-q", "--no-profile"])
     assert rc == 0
     assert "no overlapping pairs" in out
 
@@ -251,9 +252,10 @@ def test_overlap__clinics_with_one_radius(capsys):
 
 def test_overlap__gpkg_output_holds_intersections_in_the_input_crs(capsys, tmp_path, service_zones, one_layer_doc):
     out = tmp_path / "pairs.gpkg"
-    rc = main(["overlap", *ZONES, "-n", "40000", "--seed", "3", "--confidence", "0.999", "-q", "--output", str(out)])
+    rc, stdout, _ = run_cli(capsys, ["overlap", *ZONES, "-n", "40000", "--seed", "3", "--confidence", "0.999", "-q",
+                                     "--output", str(out)])
     assert rc == 0
-    assert capsys.readouterr().out == ""  # results went to the file
+    assert stdout == ""  # results went to the file
     with fiona.open(out) as src:
         assert pyproj.CRS.from_user_input(src.crs.to_wkt()).to_epsg() == 4326
         feats = list(src)
@@ -292,9 +294,8 @@ def test_overlap__gpkg_output_holds_the_shares(tmp_path, one_layer_doc):
 
 
 def test_overlap__csv_and_units(capsys, one_layer_doc):
-    rc = main(["overlap", *ZONES, "-n", "40000", "--seed", "3", "--confidence", "0.999", "-q", "--format", "csv",
-               "--units", "km2", "--no-profile"])
-    out, _ = capsys.readouterr()
+    rc, out, _ = run_cli(capsys, ["overlap", *ZONES, "-n", "40000", "--seed", "3", "--confidence", "0.999", "-q",
+                                  "--format", "csv", "--units", "km2", "--no-profile"])
     assert rc == 0
     rows = {(r["id_a"], r["id_b"]): r for r in csv.DictReader(io.StringIO(out))}
     assert len(rows) == len(one_layer_doc["results"])
@@ -321,7 +322,14 @@ def bad_points(tmp_path_factory):
 @pytest.mark.parametrize(
     "argv, needle",
     [
-        pytest.param(CLINICS, "--radius", id="points-without-radius"),
+        pytest.param(CLINICS, "give --radius or --radius-field", id="points-without-radius"),
+        pytest.param([*CLINICS, "--radius", "5km", "--circle-vertices", "3"], "--circle-vertices: at least 8",
+                     id="circle-vertices-3"),
+        pytest.param([*ZONES[:3], "--id-field", "nope"], "--id-field 'nope' is not a field", id="unknown-id-field"),
+        pytest.param([*ZONES, str(GPKG), "--other-layer", "districts", "--other-id-field", "nope"],
+                     "--other-id-field 'nope' is not a field", id="unknown-other-id-field"),
+        pytest.param([*ZONES, str(GPKG), "--other-layer", "clinics"], "give --radius or --radius-field",
+                     id="other-points-without-radius"),
         pytest.param([*CLINICS, "--radius", "0km"], "--radius", id="radius-0km"),
         pytest.param([*CLINICS, "--radius=-5km"], "--radius", id="radius=-5km"),
         pytest.param([*CLINICS, "--radius", "-5km"], "--radius", id="radius -5km"),
@@ -335,22 +343,44 @@ def bad_points(tmp_path_factory):
     ],
 )
 def test_overlap__bad_input_one_line_exit_2(capsys, argv, needle):
-    rc = main(["overlap", *argv, "-n", "100"])
-    out, err = capsys.readouterr()
+    rc, out, err = run_cli(capsys, ["overlap", *argv, "-n", "100"])
     assert rc == 2
     assert out == ""
     assert err.count("\n") == 1 and err.startswith("areamc")
     assert "Traceback" not in err
     assert needle in err
+    # the library names Python parameters; the command line must show its flags instead
+    assert not re.search(r"(?<![-\w])(id_field|radius_m|radius_field|vertices|min_share|input_crs)\b", err), err
+
+
+def test_overlap__table_footer_says_no_row_is_flagged(capsys, one_layer_doc):
+    # the same run as the JSON fixture, whose rows are all within 4 standard errors (checked above)
+    assert not any(r["flagged"] for r in one_layer_doc["results"])
+    rc, out, err = run_cli(capsys, ["overlap", *ZONES, "-n", "40000", "--seed", "3", "--confidence", "0.999", "-q"])
+    assert rc == 0, err
+    assert "no row flagged: every estimate within 4 standard errors of the exact intersection area" in out
+    assert "multiplicity profile" in out
 
 
 @pytest.mark.parametrize("case", ["missing", "negative", "zero"])
 def test_overlap__bad_radius_values_in_a_field(capsys, bad_points, case):
-    rc = main(["overlap", bad_points[case], "--id-field", "site", "--radius-field", "reach", "-n", "100"])
-    out, err = capsys.readouterr()
+    rc, out, err = run_cli(capsys, ["overlap", bad_points[case], "--id-field", "site", "--radius-field", "reach",
+                                    "-n", "100"])
     assert rc == 2 and out == ""
     assert err.count("\n") == 1 and "Traceback" not in err
     assert "reach" in err and ("feature a" in err or "feature b" in err)
+
+
+def test_overlap__other_layer_without_crs_names_the_other_flag(capsys, tmp_path):
+    path = tmp_path / "nocrs.shp"
+    schema = {"geometry": "Polygon", "properties": {"n": "str"}}
+    with fiona.open(path, "w", driver="ESRI Shapefile", schema=schema) as dst:
+        dst.write({"geometry": mapping(box(10.4, 47.1, 10.6, 47.3)), "properties": {"n": "a"}})  # no .prj
+    cases = (([], "state it with --other-input-crs"), (["--other-input-crs", "bogus"], "--other-input-crs"))
+    for extra, needle in cases:
+        rc, out, err = run_cli(capsys, ["overlap", *ZONES, str(path), "-n", "100", *extra])
+        assert rc == 2 and out == "" and err.count("\n") == 1
+        assert needle in err and " --input-crs" not in err, err
 
 
 # --- end to end ----------------------------------------------------------------------------------

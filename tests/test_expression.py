@@ -139,7 +139,8 @@ def test_parse__hostile_expression_refused_with_pointer(text, part, what):
     with pytest.raises(OptionError) as info:
         parse_expression(text)
     message = str(info.value)
-    assert message.startswith("--density:")
+    # library messages name the Python parameter ("density: ..."), not a command-line flag
+    assert message.startswith("density:") and info.value.param == "density"
     assert repr(text) in message  # the whole expression is quoted
     assert what in message
     column, shown = pointed_part(message)
@@ -160,8 +161,9 @@ def test_parse__hostile_call_is_never_executed(tmp_path, monkeypatch):
 
 @pytest.mark.parametrize("text", ["x +* 2", "exp(x", "x y", "x; y", "", "   ", "1 +"])
 def test_parse__syntax_error_names_column(text):
-    with pytest.raises(OptionError, match=r"^--density: syntax error in expression .* at column \d+"):
+    with pytest.raises(OptionError, match=r"^density: syntax error in expression .* at column \d+") as info:
         parse_expression(text)
+    assert info.value.param == "density"
 
 
 def test_parse__unknown_name_lists_allowed_names():

@@ -2,7 +2,7 @@
 
 Expected values come from outside areamc:
 
-* areal weighting (Goodchild & Lam 1980, Geo-Processing 1:297-312; REFERENCES §7),
+* areal weighting (Goodchild & Lam 1980, Geo-Processing 1:297-312 [memory]),
   Σ count |block ∩ region| / |block|, computed here with shapely 2 (GEOS), and a worked
   example in exact fractions (constructed here, see tests/test_density.py for the derivation);
 * raster totals: sums of cells (numpy), and cell fractions from cells densified along their
@@ -22,43 +22,31 @@ import math
 import numpy as np
 import pyproj
 import pytest
-import rasterio
-import rasterio.transform
 import shapely
 from shapely.geometry import Polygon, box
 
+from conftest import overlay_total, write_raster
+
 from areamc.density import BlockDensity, ExpressionDensity, RasterDensity
 from areamc.errors import InputError
-from areamc.estimate import StopRule
+from areamc.stopping import StopRule
 from areamc.integrate import integrate_density
-from areamc.load import AreamcWarning, layer_from_geometries
+from areamc.errors import AreamcWarning
+from areamc.load import layer_from_geometries
 from areamc.project import project_layers
 
 PLANE = "+proj=laea +lat_0=47 +lon_0=10 +datum=WGS84 +units=m +no_defs"
 CONF = 0.999
 KM = 1000.0
+#: A precision target runs in two stages (a pilot, then a fresh final batch sized from the pilot's
+#: half-width, after Stein 1945, Ann. Math. Statist. 16:243-258): the final half-width is close to the
+#: target, not bounded by it; held to it with this allowance for its own noise (common practice).
+TWO_STAGE_SLACK = 1.3
 
 
 def on_plane(*groups, crs=PLANE, densify_m=1e9, ids=None):
     layers = [layer_from_geometries(list(g), crs, ids=ids if i == 0 else None) for i, g in enumerate(groups)]
     return project_layers(layers, crs=PLANE, densify_m=densify_m)
-
-
-def write_raster(path, data, *, west, north, dx, crs="EPSG:4326", nodata=None):
-    data = np.asarray(data, dtype="float64")
-    profile = dict(driver="GTiff", height=data.shape[0], width=data.shape[1], count=1, dtype="float64",
-                   transform=rasterio.transform.from_origin(west, north, dx, dx), crs=crs)
-    if nodata is not None:
-        profile["nodata"] = nodata
-    with rasterio.open(path, "w", **profile) as dst:
-        dst.write(data, 1)
-    return str(path)
-
-
-def overlay_total(blocks, counts, region) -> float:
-    """Areal weighting with shapely over every block (Goodchild & Lam 1980)."""
-    inter = shapely.area(shapely.intersection(blocks, region))
-    return float(np.sum(np.asarray(counts) * inter / shapely.area(blocks)))
 
 
 def check_row(row, ref, *, rel_exact=1e-9):
@@ -106,7 +94,7 @@ def test_blocks__estimates_hold_the_areal_weighting_total(grid, importance, meth
         assert row.method == method and row.points == 100_000
         assert row.region_area == pytest.approx(region.area, rel=1e-12)
         check_row(row, overlay_total(blocks.planar, counts, region), rel_exact=1e-12)
-    assert report.seed_entropy == 31 and report.source == "blocks"
+    assert report.run.seed_entropy == 31 and report.source == "blocks"
 
 
 def test_blocks__worked_example_in_fractions():
@@ -163,8 +151,9 @@ def test_blocks__relative_precision_target(grid):
     stop = StopRule(points=None, relative=0.003, max_points=5_000_000)
     report = integrate_density(regions, BlockDensity(blocks, counts), stop=stop, confidence=0.95, seed=2)
     for row, region in zip(report.rows, regions.planar):
-        assert (row.ci_high - row.ci_low) / 2 <= 0.003 * row.estimate
-        assert row.points < 5_000_000
+        assert row.stop_reason == "target" and row.pilot_points > 0
+        assert (row.ci_high - row.ci_low) / 2 <= TWO_STAGE_SLACK * 0.003 * row.estimate
+        assert row.points + row.pilot_points < 5_000_000
         assert abs(row.estimate - overlay_total(blocks.planar, counts, region)) <= 4 * row.stderr
 
 
@@ -181,9 +170,9 @@ def test_raster__constant_density_per_m2_in_the_plane(tmp_path, importance):
     # 0.004 per m² everywhere: the total is 0.004 x the region's shapely area (constructed here)
     path = write_raster(tmp_path / "flat.tif", np.full((60, 80), 0.004), west=-4000, north=3000, dx=100, crs=PLANE)
     regions = on_plane([wobbly(200, -300, 1800, 1200), wobbly(-2000, 1500, 900, 700)])[0]
-    source = RasterDensity(path, regions.plane, values="per-m2")
-    report = integrate_density(regions, source, stop=StopRule(points=100_000), confidence=CONF, seed=3,
-                               importance=importance)
+    with RasterDensity(path, regions.plane, values="per-m2") as source:
+        report = integrate_density(regions, source, stop=StopRule(points=100_000), confidence=CONF, seed=3,
+                                   importance=importance)
     for row, region in zip(report.rows, regions.planar):
         assert row.method == ("importance" if importance else "uniform")
         check_row(row, 0.004 * region.area)
@@ -196,8 +185,8 @@ def test_raster__constant_density_per_km2_on_a_geographic_grid(tmp_path):
     path = write_raster(tmp_path / "geo.tif", np.full((40, 60), 250.0), west=9.70, north=47.20, dx=0.01)
     regions = project_layers([layer_from_geometries([wobbly(10.0, 47.0, 0.2, 0.12)], "EPSG:4326")],
                              crs=PLANE, densify_m=200.0)[0]
-    source = RasterDensity(path, regions.plane, values="per-km2")
-    report = integrate_density(regions, source, stop=StopRule(points=200_000), confidence=CONF, seed=5)
+    with RasterDensity(path, regions.plane, values="per-km2") as source:
+        report = integrate_density(regions, source, stop=StopRule(points=200_000), confidence=CONF, seed=5)
     row = report.rows[0]
     check_row(row, 250e-6 * regions.planar[0].area, rel_exact=1e-5)
 
@@ -235,8 +224,10 @@ def test_raster__region_holding_the_whole_grid_gets_the_sum_of_cells(tmp_path):
     path, data = count_grid(tmp_path)
     regions = project_layers([layer_from_geometries([box(10.1, 47.1, 10.6, 47.45)], "EPSG:4326")],
                              crs=PLANE, densify_m=500.0)[0]
-    source = RasterDensity(path, regions.plane)
-    imp = integrate_density(regions, source, stop=StopRule(points=50_000), confidence=CONF, seed=6).rows[0]
+    with RasterDensity(path, regions.plane) as source:
+        imp = integrate_density(regions, source, stop=StopRule(points=50_000), confidence=CONF, seed=6).rows[0]
+        uni = integrate_density(regions, source, stop=StopRule(points=200_000), confidence=CONF, seed=6,
+                                importance=False).rows[0]
     # every draw falls in the region: the estimate is the proposal total, the sum of the cells
     assert imp.method == "importance"
     assert imp.estimate == pytest.approx(data.sum(), rel=1e-12)
@@ -244,8 +235,6 @@ def test_raster__region_holding_the_whole_grid_gets_the_sum_of_cells(tmp_path):
     assert imp.ci_low <= data.sum() <= imp.ci_high + 1e-9
     # plain sampling: density = count / (closed-form cell area), so the mean over the region
     # times its area is again the sum of the cells
-    uni = integrate_density(regions, source, stop=StopRule(points=200_000), confidence=CONF, seed=6,
-                            importance=False).rows[0]
     assert uni.method == "uniform"
     check_row(uni, float(data.sum()), rel_exact=1e-9)
 
@@ -257,9 +246,9 @@ def test_raster__cell_fractions_over_a_region_cutting_cells(tmp_path, importance
                                                      box(10.123, 47.3, 10.277, 47.371)], "EPSG:4326")],
                              crs=PLANE, densify_m=200.0)[0]
     cells = dense_cells(10.20, 47.35, 0.01, 20, 30)
-    source = RasterDensity(path, regions.plane)
-    report = integrate_density(regions, source, stop=StopRule(points=200_000), confidence=CONF, seed=7,
-                               importance=importance)
+    with RasterDensity(path, regions.plane) as source:
+        report = integrate_density(regions, source, stop=StopRule(points=200_000), confidence=CONF, seed=7,
+                                   importance=importance)
     for row, region in zip(report.rows, regions.planar):
         share = shapely.area(shapely.intersection(cells, region)) / shapely.area(cells)
         ref = float(np.sum(data.ravel() * share))
@@ -272,8 +261,8 @@ def test_raster__nodata_cells_warn_and_count_as_empty(tmp_path):
     valid = np.where(data == -1.0, 0.0, data)
     regions = project_layers([layer_from_geometries([box(10.1, 47.1, 10.6, 47.45)], "EPSG:4326")],
                              crs=PLANE, densify_m=500.0)[0]
-    with pytest.warns(AreamcWarning, match=r"3 nodata cell\(s\)"):
-        report = integrate_density(regions, RasterDensity(path, regions.plane), stop=StopRule(points=20_000), seed=8)
+    with RasterDensity(path, regions.plane) as source, pytest.warns(AreamcWarning, match=r"3 nodata cell\(s\)"):
+        report = integrate_density(regions, source, stop=StopRule(points=20_000), seed=8)
     assert report.rows[0].estimate == pytest.approx(valid.sum(), rel=1e-12)
     assert report.rows[0].exact == pytest.approx(valid.sum(), rel=1e-9)
 
@@ -281,7 +270,8 @@ def test_raster__nodata_cells_warn_and_count_as_empty(tmp_path):
 def test_raster__region_off_the_grid(tmp_path):
     path, _ = count_grid(tmp_path)
     regions = on_plane([box(300_000, 300_000, 310_000, 310_000)])[0]
-    row = integrate_density(regions, RasterDensity(path, regions.plane), stop=StopRule(points=1000), seed=1).rows[0]
+    with RasterDensity(path, regions.plane) as source:
+        row = integrate_density(regions, source, stop=StopRule(points=1000), seed=1).rows[0]
     assert (row.method, row.estimate, row.exact, row.points) == ("none", 0.0, 0.0, 0)
 
 
@@ -308,8 +298,9 @@ def test_expression__polynomial_to_a_relative_precision():
     stop = StopRule(points=None, relative=0.002, max_points=10_000_000)
     row = integrate_density(regions, ExpressionDensity("(x**2 + 3*y) * 1e-12", regions.plane),
                             stop=stop, confidence=0.95, seed=13).rows[0]
-    assert (row.ci_high - row.ci_low) / 2 <= 0.002 * row.estimate
-    assert row.points < 10_000_000
+    assert row.stop_reason == "target" and row.pilot_points > 0
+    assert (row.ci_high - row.ci_low) / 2 <= TWO_STAGE_SLACK * 0.002 * row.estimate
+    assert row.points + row.pilot_points < 10_000_000
     assert abs(row.estimate - exact) <= 4 * row.stderr
 
 

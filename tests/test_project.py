@@ -1,6 +1,6 @@
 """Tests of areamc.project: equal-area planes, densification and reprojection.
 
-References (collected in the shared REFERENCES.md):
+References:
 * Karney (2013), "Algorithms for geodesics", J. Geodesy 87:43-55, through pyproj.Geod.
 * Snyder (1987), Map Projections: A Working Manual, USGS Prof. Paper 1395, eq. 3-12 (the
   authalic q function) and Appendix A (worked LAEA example).
@@ -18,15 +18,14 @@ import pytest
 import shapely
 from shapely.geometry import Point, Polygon, box
 
-from areamc.errors import CRSError, NotEqualAreaError
+from areamc.errors import AreamcWarning, CRSError, NotEqualAreaError
 from areamc.exact import geodesic_area, planar_area
+from areamc.geodesy import WGS84, quadrangle_area
 from areamc.project import (
     LONLAT,
-    WGS84,
     choose_plane,
     densify,
     measure_area_distortion,
-    quadrangle_area,
     resolve_plane,
     transform_geometry,
     transformer,
@@ -36,7 +35,8 @@ from conftest import COUNTRY, EQUATOR_BOX, HIGH_LATITUDE_BOX, MID_LATITUDE_BOX, 
 
 EUROPE = (-10.0, 35.0, 30.0, 70.0)
 
-# REFERENCES.md §2: quadrangle areas on WGS84, A = (a²/2) Δλ (q(φ2) − q(φ1)) [computed, 40 digits].
+# Quadrangle areas on WGS84, A = (a²/2) Δλ (q(φ2) − q(φ1)), computed from Snyder 1987 eq. 3-12 to
+# 40 digits (pyproj.Geod, Karney 2013, J. Geodesy 87:43-55, agrees on densified boxes).
 QUADRANGLES = [
     ((0.0, 0.0, 1.0, 1.0), 12_308_463_893.975352),
     ((0.0, 45.0, 1.0, 46.0), 8_686_494_956.670401),
@@ -46,8 +46,11 @@ QUADRANGLES = [
     ((170.0, -60.0, 180.0, -50.0), 711_460_782_666.68829),
 ]
 QUADRANGLE_IDS = ["0N_0E_1deg", "45N_0E_1deg", "80N_0E_1deg", "40N_10E_10deg", "0N_0E_10deg", "60S_170E_10deg"]
-NORTH_OF_80_CAP = 3_908_572_761_836.572  # REFERENCES.md §2 [computed]
-#: Total area of the WGS84 ellipsoid, REFERENCES.md §1 [computed, 40 digits; pyproj.Geod agrees].
+#: Cap north of 80N: (a²/2)·2π·(q(90) − q(80)), computed from Snyder 1987 eq. 3-12 to 40 digits.
+NORTH_OF_80_CAP = 3_908_572_761_836.572
+#: Total area of the WGS84 ellipsoid, 2πa²·q(90), computed from Snyder 1987 eq. 3-12 to 40 digits
+#: (pyproj.Geod, Karney 2013, agrees), with a and f of NIMA TR8350.2 (2000), Table 3.1 [memory
+#: for the table number].
 WGS84_TOTAL_AREA = 510_065_621_724_088.5
 
 
@@ -68,7 +71,7 @@ def test_wgs84__defining_constants():
 
 def test_quadrangle_area__whole_ellipsoid__total_area_and_authalic_radius():
     total = float(quadrangle_area(-180, -90, 180, 90))
-    # REFERENCES.md §1: total area 510 065 621 724 088.5 m², rel 1e-12.
+    # Total area 510 065 621 724 088.5 m² (Snyder 1987 eq. 3-12, computed), rel 1e-12.
     assert total == pytest.approx(WGS84_TOTAL_AREA, rel=1e-12)
     # Authalic radius R_q with 4 pi R_q² = total area: 6 371 007.1809 m (NIMA TR8350.2),
     # half a unit of the last printed digit.
@@ -77,7 +80,7 @@ def test_quadrangle_area__whole_ellipsoid__total_area_and_authalic_radius():
 
 @pytest.mark.parametrize("bounds, expected", QUADRANGLES, ids=QUADRANGLE_IDS)
 def test_quadrangle_area__closed_form_table(bounds, expected):
-    # REFERENCES.md §2 table, rel 1e-12.
+    # The closed-form table above (Snyder 1987 eq. 3-12), rel 1e-12.
     assert float(quadrangle_area(*bounds)) == pytest.approx(expected, rel=1e-12)
 
 
@@ -127,7 +130,8 @@ def test_planar_area__chosen_plane__matches_geodesic(name, project, reference_ge
 @pytest.mark.parametrize("bounds, expected", QUADRANGLES, ids=QUADRANGLE_IDS)
 def test_planar_and_geodesic_area__four_corner_box__closed_form(bounds, expected, project):
     # The box is given by its 4 corners only; parallels are not geodesics, so this passes only
-    # because the tool densifies (REFERENCES.md §2: a 10 degree box must reach rel 1e-6).
+    # because the tool densifies (parallels are not geodesics, common practice; against the
+    # closed form of Snyder 1987 eq. 3-12 a 10 degree box must reach rel 1e-6).
     projected = project([lonlat_box(bounds)])
     assert rel(float(planar_area(projected.planar)[0]), expected) < 1e-6
     assert rel(geodesic_area(projected.lonlat[0]), expected) < 1e-6
@@ -135,7 +139,8 @@ def test_planar_and_geodesic_area__four_corner_box__closed_form(bounds, expected
 
 def test_geodesic_area__ten_degree_box__undensified_corners_are_off(geod):
     # The check above has power: pyproj.Geod on the 4 corners of the 10 degree box is off by
-    # about 2.5e-3 (REFERENCES.md §2), far beyond 1e-6.
+    # about 1.25e-3 from the closed form (computed with pyproj.Geod.polygon_area_perimeter
+    # against Snyder 1987 eq. 3-12; parallels are not geodesics, common practice), far beyond 1e-6.
     w, s, e, n = TEN_DEGREE_BOX
     area, _ = geod.polygon_area_perimeter([w, e, e, w], [s, s, n, n])
     assert rel(abs(area), QUADRANGLES[3][1]) > 1e-4
@@ -143,8 +148,9 @@ def test_geodesic_area__ten_degree_box__undensified_corners_are_off(geod):
 
 @pytest.mark.parametrize("crs", [None, "EPSG:6933", "EPSG:8857"])
 def test_planar_area__geodesic_edge_polygon(crs, project, geod):
-    # REFERENCES.md §3: polygon with geodesic edges (0,0), (20,5), (12,25), (-3,15);
-    # Geod area 4 237 542 455 855.994 m² [computed]. Each edge is cut into 1000 geodesic pieces
+    # Polygon with geodesic edges (0,0), (20,5), (12,25), (-3,15); Geod area
+    # 4 237 542 455 855.994 m², computed with pyproj.Geod.polygon_area_perimeter on the 4
+    # vertices (Karney 2013). Each edge is cut into 1000 geodesic pieces
     # with Geod.npts before it reaches the tool; LAEA, EPSG:6933 and EPSG:8857 agree to ~1e-7.
     expected = 4_237_542_455_855.994
     corners = [(0, 0), (20, 5), (12, 25), (-3, 15)]
@@ -169,14 +175,19 @@ def test_planar_area__geodesic_edge_polygon(crs, project, geod):
 
 @pytest.mark.parametrize("crs", ["EPSG:3857", "EPSG:32632", "EPSG:4326"])
 def test_resolve_plane__not_equal_area__refused(crs):
-    with pytest.raises(NotEqualAreaError):
+    with pytest.raises(NotEqualAreaError) as info:
         resolve_plane((5.0, 45.0, 12.0, 50.0), crs)
+    assert crs in str(info.value) and "--" not in str(info.value)  # names the CRS, never a flag
 
 
 @pytest.mark.parametrize("crs", ["EPSG:3857", "EPSG:32632", "EPSG:4326"])
 def test_project_layer__not_equal_area__refused(crs, project):
-    with pytest.raises(NotEqualAreaError):
+    with pytest.raises(NotEqualAreaError) as info:
         project([lonlat_box(MID_LATITUDE_BOX)], crs=crs)
+    # the library names the keyword the caller passed (project_layer's crs), never a command-line flag
+    assert info.value.param == "crs"
+    assert str(info.value).startswith(f"crs {crs}: ")
+    assert "--" not in str(info.value)
 
 
 @pytest.mark.parametrize("crs", ["EPSG:6933", "EPSG:3035"])
@@ -197,8 +208,9 @@ def test_planar_area__requested_plane__country(crs, project, reference_geodesic_
 
 
 def test_measure_area_distortion__mercator_and_utm_scale():
-    # REFERENCES.md §3: EPSG:3857 areal scale sec²φ = 4.000 at 60 degrees (distortion 3);
-    # UTM zone edge (3 degrees from the central meridian) at the equator: scale 1.001963.
+    # EPSG:3857 areal scale sec²φ = 4.000 at 60 degrees (distortion 3) (Snyder 1987, ch. 7
+    # Mercator [memory]); UTM zone edge (3 degrees from the central meridian) at the equator:
+    # areal scale 1.001963 (computed with pyproj.Proj.get_factors at 12E 0N, EPSG:32632).
     merc, _, _ = measure_area_distortion(pyproj.CRS.from_epsg(3857), (0.0, 60.0, 0.0, 60.0))
     assert merc == pytest.approx(3.0, rel=1e-6)
     utm, _, _ = measure_area_distortion(pyproj.CRS.from_epsg(32632), (12.0, 0.0, 12.0, 0.0))
@@ -305,8 +317,15 @@ def test_transform_geometry__non_finite__refused():
 
 @pytest.mark.parametrize("step", [0.0, -1.0, float("nan")])
 def test_densify__bad_step(step):
-    with pytest.raises(CRSError):
+    with pytest.raises(CRSError) as info:
         densify(np.array([lonlat_box(EQUATOR_BOX)]), LONLAT, step)
+    assert info.value.param == "densify_m"
+    assert str(info.value).startswith("densify_m: step must be positive")
+
+
+def test_project_layer__bad_densify_names_the_parameter(project):
+    with pytest.raises(CRSError, match=r"^densify_m: step must be positive"):
+        project([lonlat_box(EQUATOR_BOX)], densify_m=0.0)
 
 
 def test_densify__geographic_step(project):
@@ -328,10 +347,12 @@ def test_densify__geographic_step(project):
 
 
 def test_planar_area__cap_north_of_80__closed_form(project):
-    # REFERENCES.md §2: the cap north of 80N is 3 908 572 761 836.572 m² [computed]; its extent
-    # spans all longitudes, so the tool picks the global cylindrical plane EPSG:6933, in which a
-    # lat/lon box has exactly the quadrangle area (REFERENCES.md §3).
-    projected = project([box(-180.0, 80.0, 180.0, 90.0)])
+    # The cap north of 80N is 3 908 572 761 836.572 m² (computed from Snyder 1987 eq. 3-12); its
+    # extent spans all longitudes, so the tool picks the global cylindrical plane EPSG:6933, in
+    # which a lat/lon box has exactly the quadrangle area (a cylindrical equal-area projection
+    # maps parallels and meridians to straight lines, common practice).
+    with pytest.warns(AreamcWarning, match="180 degrees of longitude"):  # a box edge on the seam
+        projected = project([box(-180.0, 80.0, 180.0, 90.0)])
     assert projected.plane.label == "EPSG:6933"
     assert rel(float(planar_area(projected.planar)[0]), NORTH_OF_80_CAP) < 1e-9
     assert rel(geodesic_area(projected.lonlat[0]), NORTH_OF_80_CAP) < 1e-6
@@ -341,7 +362,7 @@ def test_planar_area__cap_north_of_80__closed_form(project):
 @pytest.mark.parametrize("bounds", [(-180.0, -80.0, 180.0, 80.0), (170.0, -60.0, 180.0, -50.0)], ids=["global", "east_180"])
 def test_resolve_plane__global_plane__extent_touching_antimeridian(bounds, crs):
     # EPSG:6933 and EPSG:8857 are equal-area everywhere (pyproj get_factors |s - 1| <= 5e-10,
-    # REFERENCES.md §3), so neither may be refused over any extent.
+    # checked just below), so neither may be refused over any extent.
     scale = pyproj.Proj(crs).get_factors(np.array([-179.99, 179.99]), np.array([bounds[1], bounds[3]])).areal_scale
     assert np.all(np.abs(np.asarray(scale) - 1) <= 5e-10)
     plane = resolve_plane(bounds, crs)
@@ -349,6 +370,7 @@ def test_resolve_plane__global_plane__extent_touching_antimeridian(bounds, crs):
 
 
 def test_project_layer__global_extent__distortion_recorded(project):
-    projected = project([box(-180.0, -60.0, 180.0, 60.0)])
+    with pytest.warns(AreamcWarning, match="180 degrees of longitude"):  # a box edge on the seam
+        projected = project([box(-180.0, -60.0, 180.0, 60.0)])
     assert projected.plane.label == "EPSG:6933"
     assert projected.plane.distortion < 1e-6

@@ -1,13 +1,14 @@
 """Tests of ``areamc.weighted``: density-weighted sampling of one region, shared by integrate and coverage.
 
 The exact covered population share is areal weighting (Goodchild & Lam 1980, Geo-Processing
-1:297-312; REFERENCES §7) computed here with shapely 2 (GEOS):
+1:297-312 [memory]) computed here with shapely 2 (GEOS):
 
     share = Σ c_i |b_i ∩ R ∩ U| / |b_i|  /  Σ c_i |b_i ∩ R| / |b_i|,   U = union of the zones.
 
 Intervals are held to it at confidence 0.999 (common practice).  Standard errors are checked
 against the spread of independent replicates with a chi-square band on the variance ratio
-((R − 1) s² / σ² ~ χ²(R − 1) for normal estimates; scipy.stats), fixed seeds.
+((R − 1) s² / σ² ~ χ²(R − 1) for normal estimates; scipy.stats), fixed seeds.  Claim stops use
+the confidence sequence of Howard, Ramdas, McAuliffe & Sekhon (2021), Ann. Statist. 49:1055-1080.
 """
 
 from __future__ import annotations
@@ -20,21 +21,26 @@ import shapely
 from scipy import stats
 from shapely.geometry import Point, Polygon
 
-from areamc.coverage import region_classifier
-from areamc.density import BlockDensity, ExpressionDensity
+from conftest import overlay_total, write_raster
+
+from areamc.classify import region_classifier
+from areamc.density import BlockDensity, ExpressionDensity, RasterDensity
 from areamc.load import layer_from_geometries
 from areamc.project import project_layers
-from areamc.weighted import IMPORTANCE, UNIFORM, weighted_run
+from areamc.samplers import Box, make_sampler
+from areamc.seeds import child_seed, make_seed
+from areamc.sequential import MEETS, UNDECIDED, verdict
+from areamc.stopping import StopRule
+from areamc.weighted import IMPORTANCE, SHARES, TOTAL, UNIFORM, weighted_run
 
 PLANE = "+proj=laea +lat_0=47 +lon_0=10 +datum=WGS84 +units=m +no_defs"
 CONF = 0.999
 CELL = 500.0
 N_SIDE = 24
-
-
-def overlay_total(blocks, counts, region) -> float:
-    inter = shapely.area(shapely.intersection(blocks, region))
-    return float(np.sum(np.asarray(counts) * inter / shapely.area(blocks)))
+#: A precision target runs in two stages (a pilot, then a fresh final batch sized from the pilot's
+#: half-width, after Stein 1945, Ann. Math. Statist. 16:243-258): the final half-width is close to the
+#: target, not bounded by it; held to it with this allowance for its own noise (common practice).
+TWO_STAGE_SLACK = 1.3
 
 
 @pytest.fixture(scope="module")
@@ -62,9 +68,13 @@ def scene():
     }
 
 
-def run(scene, seed, budget, importance, key=(0,), chunk=1 << 14, done=None, source=None):
-    return weighted_run(scene["region"], scene["classify"], source or scene["source"], np.random.SeedSequence(seed),
-                        key, budget=budget, chunk=chunk, importance=importance, done=done)
+def run(scene, seed, points, importance, stream=(0,), chunk=1 << 14, source=None, stop=None, claim=None,
+        target=TOTAL, confidence=0.95):
+    """One weighted run over the scene's region; its stream is child `stream` of the root `seed`."""
+    view = (source or scene["source"]).for_region(scene["region"])
+    return weighted_run(view, scene["classify"], child_seed(make_seed(seed), *stream),
+                        stop=stop or StopRule(points=points), confidence=confidence, target=target, claim=claim,
+                        chunk=chunk, importance=importance)
 
 
 def test_scene_is_not_trivial(scene):
@@ -90,7 +100,7 @@ def test_importance_interval_is_tighter_and_both_hold_the_exact_share(scene):
         total = r.total(CONF)
         assert total.ci_low <= scene["total"] <= total.ci_high, name
     assert widths["importance"] < widths["uniform"]
-    assert widths["importance"] < 0.85 * widths["uniform"]  # a real gain, not a tie (about 0.62 here)
+    assert widths["importance"] < 0.85 * widths["uniform"]  # a real gain, not a tie
 
 
 @pytest.mark.parametrize("importance", [True, False])
@@ -127,24 +137,56 @@ def test_chunk_size_and_stream_keys(scene):
     b = run(scene, 5, 20_000, True, chunk=1000)
     np.testing.assert_array_equal(a.sums, b.sums)
     np.testing.assert_array_equal(a.sumsq, b.sumsq)
-    other = run(scene, 5, 20_000, True, key=(1,))
+    other = run(scene, 5, 20_000, True, stream=(1,))
     assert not np.array_equal(a.sums, other.sums)  # another region's stream
     u1 = run(scene, 5, 20_000, False, chunk=20_000)
     u2 = run(scene, 5, 20_000, False, chunk=3000)
     np.testing.assert_allclose(u1.sums, u2.sums, rtol=1e-12)
 
 
-def test_done_callback_stops_early_with_the_run_state(scene):
-    seen = []
+def test_uniform_run_draws_from_the_streams_child_2(scene):
+    # documented stream layout: with plain sampling the points come from child (2,) of the region's
+    # stream, uniform in the region's bounding box; the sums are re-derived here from those points,
+    # the source's density and shapely's point-in-polygon test
+    seed = child_seed(make_seed(17), 0)
+    got = run(scene, 17, 30_000, False, chunk=7000)
+    x, y = make_sampler("uniform", child_seed(seed, 2), Box.of(scene["region"].bounds)).random(30_000)
+    score = scene["source"].for_region(scene["region"]).density(x, y) * shapely.contains_xy(scene["region"], x, y)
+    covered = shapely.contains_xy(shapely.union_all(scene["zones"]), x, y)
+    np.testing.assert_allclose(got.sums, [score.sum(), (score * covered).sum()], rtol=1e-9)
+    np.testing.assert_allclose(got.sumsq, [(score**2).sum(), ((score * covered) ** 2).sum()], rtol=1e-9)
 
-    def done(method, scale, sums, sumsq, points):
-        seen.append((method, scale, points))
-        return points >= 2000
 
-    r = run(scene, 1, 100_000, True, chunk=1000, done=done)
-    assert r.points == 2000 and r.stopped_early
-    assert [s[2] for s in seen] == [1000, 2000]
-    assert seen[0][0] == IMPORTANCE and seen[0][1] == r.scale
+def test_claim_stops_at_the_first_decided_chunk(scene):
+    # the covered share is about 0.45 (areal weighting); a claim of 0.38 is decided "meets" quickly by the
+    # confidence sequence (Howard et al. 2021), and the run stops at the first chunk end where it is
+    claim, chunk = 0.38, 200
+    assert scene["share"] > claim + 0.05  # guard on the test design
+    r = run(scene, 1, 100_000, True, chunk=chunk, claim=claim)
+    assert r.method == IMPORTANCE and r.reason == "decided" and r.pilot_points == 0
+    assert r.points < 100_000 and r.points % chunk == 0
+    assert verdict(int(r.sums[1]), int(r.sums[0]), claim, 0.95) == MEETS
+    # one chunk earlier (the same stream, a fixed count) the verdict was still open
+    assert r.points > chunk  # guard on the test design: not decided on the first chunk
+    before = run(scene, 1, r.points - chunk, True, chunk=chunk)
+    assert verdict(int(before.sums[1]), int(before.sums[0]), claim, 0.95) == UNDECIDED
+    # plain sampling cannot decide a claim (its share is a ratio estimate, not a proportion): it uses the budget
+    u = run(scene, 1, 5000, False, chunk=chunk, claim=claim)
+    assert u.method == UNIFORM and u.points == 5000 and u.reason == "budget"
+
+
+@pytest.mark.parametrize("importance", [True, False])
+def test_share_tolerance_runs_in_two_stages(scene, importance):
+    # an absolute half-width of 0.01 on the covered share, at confidence 0.95
+    stop = StopRule(points=None, absolute=0.01, max_points=2_000_000)
+    r = run(scene, 23, None, importance, stop=stop, target=SHARES, chunk=4096)
+    assert r.reason == "target" and r.pilot_points > 0
+    share, se, low, high = r.share(1, 0.95)
+    assert (high - low) / 2 <= TWO_STAGE_SLACK * 0.01
+    assert abs(share - scene["share"]) <= 4 * se
+    # the final batch is sized to the target, not to the cap: its half-width is not much below the target
+    assert (high - low) / 2 >= 0.01 / TWO_STAGE_SLACK
+    assert r.points + r.pilot_points < 2_000_000
 
 
 def test_zero_density_and_sources_without_proposal(scene):
@@ -168,28 +210,17 @@ def test_weighted_run__raster_without_importance_sampler_still_counts_its_densit
     # Regression: a raster in a CRS that is not equal-area has no importance sampler; the run must
     # fall back to uniform sampling, not report a zero density.  Reference: constant density x
     # shapely area (calculus: the integral of a constant).
-    import rasterio
-    from rasterio.transform import from_origin
-
-    from areamc.density import RasterDensity
-    from areamc.load import layer_from_geometries
-    from areamc.project import project_layers
-    from areamc.sampling import make_seed
-    from areamc.weighted import UNIFORM, weighted_run
-
-    path = tmp_path / "utm.tif"
-    data = np.full((20, 20), 1e-4, dtype="float32")  # persons per m², UTM 32N cells of 500 m
-    with rasterio.open(path, "w", driver="GTiff", height=20, width=20, count=1, dtype="float32",
-                       crs="EPSG:32632", transform=from_origin(600_000, 5_240_000, 500, 500)) as dst:
-        dst.write(data, 1)
+    # persons per m², UTM 32N cells of 500 m
+    path = write_raster(tmp_path / "utm.tif", np.full((20, 20), 1e-4), west=600_000, north=5_240_000, dx=500,
+                        crs="EPSG:32632", dtype="float32")
     region_utm = shapely.box(602_000, 5_232_000, 606_000, 5_236_000)
     (region,) = project_layers([layer_from_geometries([region_utm], "EPSG:32632")])
-    source = RasterDensity(str(path), region.plane, values="per-m2")
     geom = region.planar[0]
-    source.prepare(geom)
-    assert source.proposal(geom) is None  # UTM is not equal-area: no importance sampler
-    run = weighted_run(geom, lambda x, y: shapely.contains_xy(geom, x, y)[:, None], source, make_seed(3), (0,),
-                       budget=50_000, chunk=10_000)
+    with RasterDensity(path, region.plane, values="per-m2") as source:
+        view = source.for_region(geom)
+        assert view.proposal() is None  # UTM is not equal-area: no importance sampler
+        run = weighted_run(view, lambda x, y: shapely.contains_xy(geom, x, y)[:, None], make_seed(3),
+                           stop=StopRule(points=50_000), confidence=0.95, chunk=10_000)
     assert run is not None and run.method == UNIFORM
     total = run.total(0.95)
     assert abs(total.estimate - 1e-4 * geom.area) <= 4 * total.stderr + 1e-9 * geom.area

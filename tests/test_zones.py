@@ -6,7 +6,7 @@ Expected values come from outside areamc:
   ``Geod.polygon_area_perimeter`` (Karney 2013, "Algorithms for geodesics", J. Geodesy
   87:43-55), with a Geod built here, not areamc's;
 * on a sphere, ``pyproj.Geod(a=R, b=R)``: the spherical cap 2πR²(1 − cos(r/R)) (standard
-  spherical geometry, REFERENCES.md §9) and the exact area of the inscribed spherical n-gon
+  spherical geometry, common practice) and the exact area of the inscribed spherical n-gon
   from the spherical excess (standard spherical trigonometry [memory]);
 * on WGS84: the same cap with R the Gaussian radius of curvature sqrt(M N) at the centre's
   latitude, where
@@ -31,8 +31,8 @@ import pytest
 import shapely
 from shapely.geometry import MultiPoint, Point, shape
 
-from areamc.errors import LayerError, OptionError
-from areamc.load import AreamcWarning, layer_from_geometries, read_layer
+from areamc.errors import AreamcWarning, LayerError, OptionError
+from areamc.load import layer_from_geometries, read_layer
 from areamc.zones import DEFAULT_VERTICES, geodesic_circle, read_zones, zones_from_points
 
 SAMPLE = Path(__file__).resolve().parents[1] / "sample_data"
@@ -109,8 +109,8 @@ def test_geodesic_circle__valid_counter_clockwise_and_holds_its_centre(lat):
 @pytest.mark.parametrize("vertices", [64, DEFAULT_VERTICES])
 def test_geodesic_circle__area_against_spherical_cap_and_polygon_deficit(lat, radius_m, vertices):
     """The polygon's WGS84 area (pyproj.Geod) equals the cap area on the sphere of the same
-    Gaussian curvature (REFERENCES §9), less the inscribed-polygon deficit (2π/n)²/6 (common
-    practice).
+    Gaussian curvature (cap 2πR²(1 − cos(r/R)), standard spherical geometry, common practice),
+    less the inscribed-polygon deficit (2π/n)²/6 (common practice).
 
     Both approximations are good to well under 1% of the deficit here: the polygon's own
     higher-order term is x²/20 of it (x = 2π/n), the curvature terms at 500 km are about
@@ -136,7 +136,8 @@ def test_geodesic_circle__deficit_falls_as_one_over_n_squared():
     assert deficits[0] / deficits[1] == pytest.approx(16.0, rel=0.01)
 
 
-#: A sphere of the WGS84 authalic radius R_q = 6 371 007.180 918 m (REFERENCES §1; TR8350.2).
+#: A sphere of the WGS84 authalic radius R_q = 6 371 007.180 918 m (NIMA TR8350.2 (2000), Table
+#: 3.1 [memory for the table number]; also √(A/4π) with A from Snyder 1987 eq. 3-12).
 R_SPHERE = 6_371_007.180918
 SPHERE = pyproj.Geod(a=R_SPHERE, b=R_SPHERE)
 
@@ -172,7 +173,8 @@ def test_geodesic_circle__on_a_sphere_is_the_exact_spherical_ngon(lat, radius_m,
 @pytest.mark.parametrize("radius_m", [10_000.0, 100_000.0])
 @pytest.mark.parametrize("vertices", [64, DEFAULT_VERTICES])
 def test_geodesic_circle__on_a_sphere_against_the_cap(lat, radius_m, vertices):
-    """Cap area 2πR²(1 − cos(r/R)) (REFERENCES §9) less the deficit (2π/n)²/6 (common practice),
+    """Cap area 2πR²(1 − cos(r/R)) (standard spherical geometry, common practice) less the
+    deficit (2π/n)²/6 (common practice),
     to 1% of the deficit (higher-order terms: x²/20 with x = 2π/n, and (r/R)²)."""
     poly = geodesic_circle(10.0, lat, radius_m, vertices, geod=SPHERE)
     area, _ = SPHERE.polygon_area_perimeter(*ring(poly))
@@ -259,21 +261,25 @@ def test_zones_from_points__multipoint_is_the_union_of_its_circles():
 
 def test_zones_from_points__needs_exactly_one_radius():
     layer = point_layer([Point(10.0, 45.0)], properties=[{"reach": 1000.0}])
-    with pytest.raises(OptionError, match="--radius"):
+    # library messages name the Python parameters, not the command-line flags
+    with pytest.raises(OptionError, match="holds points; give radius_m or radius_field") as info:
         zones_from_points(layer)
+    assert info.value.params == ("radius_m", "radius_field") and "--radius" not in str(info.value)
     with pytest.raises(OptionError, match="one of them"):
         zones_from_points(layer, radius_m=1000.0, radius_field="reach")
 
 
 def test_zones_from_points__too_few_vertices():
-    with pytest.raises(OptionError, match="at least 8"):
+    with pytest.raises(OptionError, match=r"^vertices: at least 8") as info:
         zones_from_points(point_layer([Point(10.0, 45.0)]), radius_m=1000.0, vertices=7)
+    assert info.value.param == "vertices"
 
 
 def test_zones_from_points__unknown_radius_field_names_the_fields():
     layer = point_layer([Point(10.0, 45.0)], properties=[{"reach_m": 1000.0, "name": "x"}])
-    with pytest.raises(LayerError, match=r"'reach'.*reach_m, name"):
+    with pytest.raises(LayerError, match=r"radius_field 'reach' is not a field.*reach_m, name") as info:
         zones_from_points(layer, radius_field="reach")
+    assert info.value.param == "radius_field"
 
 
 @pytest.mark.parametrize("bad", [None, -5.0, 0.0, "abc", float("nan"), float("inf")])
@@ -309,5 +315,6 @@ def test_read_zones__polygon_layer_ignores_a_radius_with_a_warning():
 
 
 def test_read_zones__point_layer_without_radius_refused():
-    with pytest.raises(OptionError, match="--radius"):
+    with pytest.raises(OptionError, match="give radius_m or radius_field") as info:
         read_zones(str(GPKG), layer="clinics")
+    assert "--radius" not in str(info.value)

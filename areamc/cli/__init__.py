@@ -11,10 +11,9 @@ import sys
 import warnings
 
 from .. import __version__
-from ..errors import AreamcError
-from ..load import AreamcWarning
+from ..errors import AreamcError, AreamcWarning
 from . import area, coverage, inspect, integrate, overlap
-from .common import Parser
+from .common import Parser, describe
 
 __all__ = ["main", "build_parser"]
 
@@ -36,7 +35,7 @@ def build_parser() -> Parser:
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None):
-    text = " ".join(str(message).split())
+    text = " ".join(describe(message).split())
     prefix = "warning" if issubclass(category, AreamcWarning) else f"warning ({category.__name__})"
     print(f"areamc: {prefix}: {text}", file=sys.stderr)
 
@@ -62,7 +61,7 @@ def _run(argv: list[str], verbose: bool) -> int:
     except AreamcError as err:
         if verbose:
             raise
-        print(f"areamc: error: {' '.join(str(err).split())}", file=sys.stderr)
+        print(f"areamc: error: {' '.join(describe(err).split())}", file=sys.stderr)
         return err.exit_status
     except KeyboardInterrupt:
         print("areamc: interrupted", file=sys.stderr)

@@ -2,22 +2,21 @@
 
 from __future__ import annotations
 
-
 from ..area import estimate_areas
-from ..estimate import AreaEstimate
-from ..exact import FLAG_Z
 from ..load import read_layer
 from ..output import Column, render, write_text
 from ..project import project_layer
 from .common import (
-    run_metadata,
+    Screen,
     add_layer_options,
     add_output_options,
     add_plane_options,
     add_sampling_options,
     check_outputs,
-    emit,
+    flag_line,
     positive_int,
+    run_metadata,
+    show,
     stop_rule,
 )
 from .progress import ProgressBar
@@ -34,7 +33,6 @@ COLUMNS = (
     Column("z", spec=".2f"),
     Column("flagged", "flag"),
 )
-ALL_AREA_FIELDS = COLUMNS + (Column("box_area", area=True),)
 TRACE_COLUMNS = (
     Column("id"),
     Column("points"),
@@ -44,6 +42,24 @@ TRACE_COLUMNS = (
     Column("ci_low", area=True),
     Column("ci_high", area=True),
 )
+
+
+def _header(args, report, layer) -> list[str]:
+    plane = report.run.plane
+    return [
+        f"areamc area: {layer.path} (layer {layer.layer}, {len(layer)} features)",
+        f"equal-area plane: {plane.label} ({'chosen from the data' if plane.chosen else 'as given'}; "
+        f"measured area distortion {plane.distortion:.1g})",
+        f"{report.run.confidence:.4g} Wilson intervals; seed {report.run.seed_entropy}; units {args.units}",
+        "",
+    ]
+
+
+def _footer(args, report, rows) -> list[str]:
+    return [] if args.no_exact else ["", flag_line(report.rows, "planar area")]
+
+
+SCREEN = Screen(COLUMNS, COLUMNS + (Column("box_area", area=True),), _header, _footer)
 
 
 def add_parser(sub) -> None:
@@ -65,7 +81,7 @@ def run(args) -> int:
     check_outputs(args, [args.file], args.trace)
     layer = read_layer(args.file, layer=args.layer, id_field=args.id_field, input_crs=args.input_crs)
     projected = project_layer(layer, crs=args.crs, densify_m=args.densify)
-    total = stop.budget * len(projected) if not stop.adaptive else None
+    total = stop.point_budget * len(projected) if not stop.adaptive else None
     bar = ProgressBar(total, args.units, args.quiet)
     try:
         report = estimate_areas(
@@ -73,6 +89,7 @@ def run(args) -> int:
             stop=stop,
             confidence=args.confidence,
             seed=args.seed,
+            sampler=args.sampler,
             chunk=args.chunk,
             exact=not args.no_exact,
             trace_every=args.trace_every if args.trace else None,
@@ -80,40 +97,10 @@ def run(args) -> int:
         )
     finally:
         bar.close()
-    metadata = {
-        **run_metadata(args, input=layer),
-        **report.metadata(),
-    }
+    metadata = {**run_metadata(args, input=layer), **report.metadata()}
     rows = [row.to_dict() for row in report.rows]
-    flagged = sum(row.flagged for row in report.rows)
-    header = [
-        f"areamc area: {layer.path} (layer {layer.layer}, {len(layer)} features)",
-        f"equal-area plane: {report.plane.label} ({'chosen from the data' if report.plane.chosen else 'as given'}; "
-        f"measured area distortion {report.plane.distortion:.1g})",
-        f"{report.confidence:.4g} Wilson intervals; seed {report.seed_entropy}; units {args.units}",
-        "",
-    ]
-    footer = []
-    if not args.no_exact:
-        footer.append("")
-        footer.append(
-            f"{flagged} row(s) flagged: estimate more than {FLAG_Z:g} standard errors from the exact planar area"
-            if flagged
-            else f"all estimates within {FLAG_Z:g} standard errors of the exact planar area"
-        )
     if args.trace:
-        write_text(_trace_csv(report, args.units), args.trace)
-    emit(args, rows, COLUMNS, metadata, header, footer, fields=ALL_AREA_FIELDS,
-         features=(layer.geometries, layer.crs, "areas"))
+        trace = [t.to_dict() for t in report.trace_rows()]
+        write_text(render(trace, TRACE_COLUMNS, fmt="csv", units=args.units, metadata={}), args.trace)
+    show(args, SCREEN, report, rows, metadata, inputs=layer, features=(layer.geometries, layer.crs, "areas"))
     return 0
-
-
-def _trace_csv(report, units: str) -> str:
-    rows = []
-    for fid, trace in report.traces.items():
-        box = next(r.box_area for r in report.rows if r.id == fid)
-        for point in trace:
-            est = AreaEstimate.from_counts(point.hits[0], point.points, box, report.confidence)
-            rows.append({"id": fid, "points": point.points, "hits": point.hits[0], "estimate": est.estimate,
-                         "stderr": est.stderr, "ci_low": est.ci_low, "ci_high": est.ci_high})
-    return render(rows, TRACE_COLUMNS, fmt="csv", units=units, metadata={})

@@ -5,12 +5,18 @@ from __future__ import annotations
 import argparse
 import math
 import sys
+from contextlib import contextmanager
+from dataclasses import dataclass
+from typing import Callable, Sequence
 
 from .. import __version__
+from ..checks import FLAG_Z
+from ..engine import DEFAULT_CHUNK
 from ..errors import OptionError
-from ..estimate import DEFAULT_CHUNK, DEFAULT_MAX_POINTS, DEFAULT_POINTS, StopRule
-from ..output import FORMATS, check_output_path, convert_rows, render, write_text
+from ..output import FORMATS, Column, check_output_path, convert_rows, render, write_text
 from ..project import DEFAULT_DENSIFY_M
+from ..samplers import SAMPLERS
+from ..stopping import DEFAULT_MAX_POINTS, DEFAULT_POINTS, StopRule
 from ..units import AREA_UNITS, area_factor, parse_distance
 from ..vector import vector_driver, write_features
 from ..zones import DEFAULT_VERTICES, read_zones
@@ -29,7 +35,90 @@ __all__ = [
     "stop_rule",
     "run_metadata",
     "zone_layer",
+    "FLAGS",
+    "flags",
+    "flag_names",
+    "Screen",
+    "flag_line",
 ]
+
+#: The option that feeds each library parameter, where its name is not simply ``--`` + the parameter.
+FLAGS = {
+    "densify_m": "--densify",
+    "vertices": "--circle-vertices",
+    "radius_m": "--radius",
+    "ks": "--at-least",
+    "exact_time_limit_s": "--exact-budget",
+    "values": "--raster-values",
+    "fmt": "--format",
+    "time_s": "--time-limit",
+}
+_NAMES: list[dict[str, str]] = []
+
+
+def _flag(param: str) -> str:
+    return FLAGS.get(param, "--" + param.replace("_", "-"))
+
+
+def flag_names(params: Sequence[str]) -> dict[str, str]:
+    """The flag of each parameter, as the innermost :func:`flags` context says, else the default."""
+    out = {}
+    for param in params:
+        for names in reversed(_NAMES):
+            if param in names:
+                out[param] = names[param]
+                break
+        else:
+            out[param] = _flag(param)
+    return out
+
+
+@contextmanager
+def flags(**names: str):
+    """Within this block, library parameters are fed by these flags (``flags(id_field="--other-id-field")``).
+
+    Errors raised inside keep the names of the innermost block they passed through.
+    """
+    _NAMES.append(names)
+    try:
+        yield
+    except Exception as err:
+        params = getattr(err, "params", ())
+        if params and not hasattr(err, "flag_names"):
+            err.flag_names = flag_names(params)
+        raise
+    finally:
+        _NAMES.pop()
+
+
+def describe(err_or_warning) -> str:
+    """An areamc error or warning's message, with each parameter named by its flag."""
+    params = getattr(err_or_warning, "params", ())
+    if not params:
+        return str(err_or_warning)
+    names = getattr(err_or_warning, "flag_names", None) or flag_names(params)
+    return err_or_warning.render(names)
+
+
+@dataclass(frozen=True)
+class Screen:
+    """How a command shows its result: table columns, every field (for units), header and footer lines.
+
+    `header(args, report, inputs)` and `footer(args, report, rows)` return lists of lines.
+    """
+
+    columns: tuple[Column, ...]
+    fields: tuple[Column, ...]
+    header: Callable[..., list[str]]
+    footer: Callable[..., list[str]]
+
+
+def flag_line(rows, what: str) -> str:
+    """The footer sentence on flagged rows, shared by every command."""
+    flagged = sum(bool(r.flagged) for r in rows)
+    if flagged:
+        return f"{flagged} row(s) flagged: more than {FLAG_Z:g} standard errors from the exact {what} (|z| > {FLAG_Z:g})"
+    return f"no row flagged: every estimate within {FLAG_Z:g} standard errors of the exact {what}"
 
 
 class Parser(argparse.ArgumentParser):
@@ -132,13 +221,22 @@ def parse_tolerance(text: str, scale: float = 1.0, below: float | None = None) -
     return value * scale, None
 
 
-def add_sampling_options(parser: argparse.ArgumentParser) -> None:
+#: What an absolute ``--tolerance`` is, per kind of estimate.
+TOLERANCE_UNITS = {
+    "area": "an area in --units",
+    "share": "a share between 0 and 1",
+    "count": "a count in the density's unit (e.g. persons)",
+}
+
+
+def add_sampling_options(parser: argparse.ArgumentParser, tolerance: str = "area") -> None:
     """Point budget, precision target, confidence, seed and chunking (shared by estimating commands)."""
     parser.add_argument("--points", "-n", type=positive_int, metavar="N",
                         help=f"points per estimate (default {DEFAULT_POINTS:,})")
     parser.add_argument("--tolerance", "-t", metavar="TOL",
-                        help="stop at the first chunk whose interval half-width is at most TOL "
-                        "(an area in --units, or a percentage of the estimate such as 0.5%%)")
+                        help=f"precision target: an interval half-width of at most TOL ({TOLERANCE_UNITS[tolerance]}, "
+                        "or a percentage of the estimate such as 0.5%%), reached by a pilot and then a fresh "
+                        "final batch")
     parser.add_argument("--max-points", type=positive_int, default=DEFAULT_MAX_POINTS, metavar="N",
                         help=f"cap on points per estimate with --tolerance (default {DEFAULT_MAX_POINTS:,})")
     parser.add_argument("--confidence", "-c", type=confidence_level, default=0.95, metavar="LEVEL",
@@ -146,8 +244,13 @@ def add_sampling_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--seed", "-s", type=non_negative_int, metavar="INT",
                         help="seed for reproducible runs (default: fresh, recorded in the output)")
     parser.add_argument("--chunk", type=positive_int, default=DEFAULT_CHUNK, metavar="N",
-                        help=f"points per chunk, bounds memory; fixed-count results do not depend on it, while --tolerance "
-                        f"and --claim stop only at chunk ends (default {DEFAULT_CHUNK})")
+                        help=f"points per chunk, bounds memory; fixed-count results do not depend on it, while a "
+                        f"--tolerance run stops only at chunk ends (default {DEFAULT_CHUNK})")
+    parser.add_argument("--sampler", choices=sorted(SAMPLERS), default="uniform",
+                        help="how points are drawn (default uniform)")
+    parser.add_argument("--time-limit", type=positive_float, metavar="SECONDS",
+                        help="stop each estimate at the first chunk end past this many seconds "
+                        "(the result then depends on the machine's speed, not only on the seed)")
 
 
 def stop_rule(args, *, scale: float | None = None, below: float | None = None) -> StopRule:
@@ -158,11 +261,12 @@ def stop_rule(args, *, scale: float | None = None, below: float | None = None) -
     ``below=1`` for shares.
     """
     if args.tolerance is None:
-        return StopRule(points=args.points or DEFAULT_POINTS, max_points=args.max_points)
+        return StopRule(points=args.points or DEFAULT_POINTS, max_points=args.max_points, time_s=args.time_limit)
     if args.points is not None:
         raise OptionError("--points and --tolerance exclude each other; give one")
     absolute, relative = parse_tolerance(args.tolerance, area_factor(args.units) if scale is None else scale, below)
-    return StopRule(points=None, absolute=absolute, relative=relative, max_points=args.max_points)
+    return StopRule(points=None, absolute=absolute, relative=relative, max_points=args.max_points,
+                    time_s=args.time_limit)
 
 
 def add_layer_options(parser: argparse.ArgumentParser, *, prefix: str = "", what: str = "the input file") -> None:
@@ -225,9 +329,16 @@ def add_zone_options(parser: argparse.ArgumentParser) -> None:
 
 def zone_layer(args, path: str, layer: str | None, id_field: str | None, input_crs: str | None):
     """Read a zone layer with the zone options of `args` (points become geodesic circles)."""
-    radius = parse_distance(args.radius, "--radius") if args.radius is not None else None
+    radius = parse_distance(args.radius) if args.radius is not None else None
     return read_zones(path, layer=layer, id_field=id_field, input_crs=input_crs, radius_m=radius,
                       radius_field=args.radius_field, vertices=args.circle_vertices)
+
+
+def show(args, screen: Screen, report, rows, metadata, *, inputs=None, features=None, columns=None) -> None:
+    """Render a report through its command's :class:`Screen` and write it (see :func:`emit`)."""
+    header = screen.header(args, report, inputs)
+    footer = screen.footer(args, report, rows)
+    emit(args, rows, columns or screen.columns, metadata, header, footer, features=features, fields=screen.fields)
 
 
 def emit(args, rows, columns, metadata, header=(), footer=(), features=None, fields=None) -> None:

@@ -4,24 +4,27 @@ from __future__ import annotations
 
 import argparse
 
-from ..coverage import estimate_coverage
+from ..coverage import COMPUTED, estimate_coverage
+from ..density import build_density
 from ..errors import OptionError
-from ..exact import FLAG_Z
-from ..load import read_layer
 from ..output import Column
+from ..load import read_layer
 from ..project import project_layers
-from ..sequential import check_claim
-from .density_options import add_density_options, build_density, density_metadata, read_density
+from ..sequential import FALLS_SHORT, MEETS, UNDECIDED, check_claim
+from .density_options import add_density_options, density_metadata, read_density_option
 from .common import (
-    run_metadata,
+    Screen,
     add_layer_options,
     add_output_options,
     add_plane_options,
     add_sampling_options,
     add_zone_options,
     check_outputs,
-    emit,
+    flag_line,
+    flags,
     positive_float,
+    run_metadata,
+    show,
     stop_rule,
     whole_number,
     zone_layer,
@@ -29,7 +32,7 @@ from .common import (
 
 COLUMNS = (
     Column("id"),
-    Column("at_least", "k"),
+    Column("k"),
     Column("share", spec=".4f"),
     Column("stderr", spec=".4f"),
     Column("ci_low", spec=".4f"),
@@ -72,7 +75,7 @@ def add_parser(sub) -> None:
     add_layer_options(p, prefix="zones-", what="ZONES")
     add_zone_options(p)
     add_plane_options(p)
-    add_sampling_options(p)
+    add_sampling_options(p, tolerance="share")
     p.add_argument("--at-least", type=whole_number(1), action="append", metavar="K",
                    help="report the share covered by at least K zones; repeat for several (default 1)")
     p.add_argument("--claim", type=_claim, metavar="SHARE",
@@ -90,9 +93,41 @@ def _tally(what: str, verdicts, claim: float, confidence: float) -> str:
     decided = [v for v in verdicts if v is not None]
     if not decided:
         return f"{what} >= {claim:g}: no verdict (needs importance sampling)"
-    counts = {v: decided.count(v) for v in ("meets", "falls short", "undecided")}
-    return (f"{what} >= {claim:g}: {counts['meets']} meet, {counts['falls short']} fall short, "
-            f"{counts['undecided']} undecided at confidence {confidence:g}")
+    counts = {v: decided.count(v) for v in (MEETS, FALLS_SHORT, UNDECIDED)}
+    return (f"{what} >= {claim:g}: {counts[MEETS]} meet, {counts[FALLS_SHORT]} fall short, "
+            f"{counts[UNDECIDED]} undecided at confidence {confidence:g}")
+
+
+def _header(args, report, inputs) -> list[str]:
+    regions, zones, spec = inputs
+    run = report.run
+    method = "confidence sequences (valid under early stopping)" if args.claim is not None else "Wilson intervals"
+    if spec is not None:
+        method += f"; population from {spec.kind} {args.density}"
+    return [
+        f"areamc coverage: {regions.path} ({regions.layer}, {len(regions)} regions) by {zones.path} ({zones.layer}, {len(zones)} zones)",
+        f"equal-area plane: {run.plane.label}; {run.confidence:.4g} {method}; seed {run.seed_entropy}; units {args.units}",
+        "",
+    ]
+
+
+def _footer(args, report, rows) -> list[str]:
+    footer = [""]
+    if args.claim is not None:
+        footer.append(_tally("claim: area share", [r.verdict for r in report.rows], args.claim, report.run.confidence))
+        if args.density is not None:
+            footer.append(_tally("claim: population share",
+                                 [r.population.verdict if r.population else None for r in report.rows],
+                                 args.claim, report.run.confidence))
+    if not args.no_exact:
+        footer.append(flag_line(report.rows, "share"))
+    not_done = sorted({rid for rid, s in report.exact_status.items() if s != COMPUTED})
+    if not_done and not args.no_exact:
+        footer.append(f"exact shares for k >= 2 not computed within --exact-budget for: {', '.join(not_done)}")
+    return footer
+
+
+SCREEN = Screen(COLUMNS, ALL_FIELDS + CLAIM_COLUMNS + POPULATION_COLUMNS, _header, _footer)
 
 
 def run(args) -> int:
@@ -101,62 +136,46 @@ def run(args) -> int:
     stop = stop_rule(args, scale=1.0, below=1.0)  # an absolute tolerance is a share
     check_outputs(args, [args.regions, args.zones])
     regions = read_layer(args.regions, layer=args.layer, id_field=args.id_field, input_crs=args.input_crs)
-    zones = zone_layer(args, args.zones, args.zones_layer, args.zones_id_field, args.zones_input_crs)
-    source_input = read_density(args)
-    layers = [regions, zones] + ([source_input.blocks] if source_input and source_input.blocks is not None else [])
+    with flags(layer="--zones-layer", id_field="--zones-id-field", input_crs="--zones-input-crs"):
+        zones = zone_layer(args, args.zones, args.zones_layer, args.zones_id_field, args.zones_input_crs)
+    spec = read_density_option(args)
+    layers = [regions, zones] + ([spec.blocks] if spec is not None and spec.blocks is not None else [])
     projected = project_layers(layers, crs=args.crs, densify_m=args.densify)
     density = None
-    if source_input is not None:
-        density = build_density(args, source_input, projected[0].plane, projected[2] if len(projected) > 2 else None,
-                                projected[0])
-    report = estimate_coverage(
-        projected[0],
-        projected[1],
-        ks=args.at_least or (1,),
-        stop=stop,
-        confidence=args.confidence,
-        claim=args.claim,
-        seed=args.seed,
-        chunk=args.chunk,
-        exact=not args.no_exact,
-        exact_budget_s=args.exact_budget,
-        density=density,
-        importance=not args.no_importance,
-    )
+    if spec is not None:
+        density = build_density(spec, projected[0].plane, projected[2] if len(projected) > 2 else None, projected[0])
+    try:
+        report = estimate_coverage(
+            projected[0],
+            projected[1],
+            ks=args.at_least or (1,),
+            stop=stop,
+            confidence=args.confidence,
+            claim=args.claim,
+            seed=args.seed,
+            sampler=args.sampler,
+            chunk=args.chunk,
+            exact=not args.no_exact,
+            exact_time_limit_s=args.exact_budget,
+            density=density,
+            importance=not args.no_importance,
+        )
+    finally:
+        if hasattr(density, "close"):
+            density.close()
     rows = [r.to_dict(population=density is not None) for r in report.rows]
     metadata = {
         **run_metadata(args, inputs=[regions, zones]),
         **report.metadata(),
-        "density": density_metadata(args, source_input),
+        "density": density_metadata(args, spec),
     }
-    method = "confidence sequences (valid under early stopping)" if args.claim is not None else "Wilson intervals"
-    if density is not None:
-        method += f"; population from {source_input.kind} {args.density}"
-    header = [
-        f"areamc coverage: {regions.path} ({regions.layer}, {len(regions)} regions) by {zones.path} ({zones.layer}, {len(zones)} zones)",
-        f"equal-area plane: {report.plane.label}; {report.confidence:.4g} {method}; seed {report.seed_entropy}; units {args.units}",
-        "",
-    ]
-    footer = [""]
-    if args.claim is not None:
-        footer.append(_tally("claim: area share", [r.verdict for r in report.rows], args.claim, report.confidence))
-        if density is not None:
-            footer.append(_tally("claim: population share", [r.population_verdict for r in report.rows],
-                                 args.claim, report.confidence))
-    flagged = sum(r.flagged for r in report.rows)
-    footer.append(f"{flagged} row(s) flagged: more than {FLAG_Z:g} standard errors from the exact share" if flagged
-                  else f"no estimate deviates from its exact share by more than {FLAG_Z:g} standard errors")
-    not_done = sorted({rid for rid, s in report.exact_status.items() if s != "computed"})
-    if not_done and not args.no_exact:
-        footer.append(f"exact shares for k >= 2 not computed within --exact-budget for: {', '.join(not_done)}")
     columns = COLUMNS + (CLAIM_COLUMNS if args.claim is not None else ())
     if density is not None:
         # a narrower area part, so the population columns fit beside it
-        columns = tuple(c for c in COLUMNS if c.field in ("id", "at_least", "share", "ci_low", "ci_high", "exact_share"))
+        columns = tuple(c for c in COLUMNS if c.field in ("id", "k", "share", "ci_low", "ci_high", "exact_share"))
         columns += ((Column("verdict"),) if args.claim is not None else ()) + POPULATION_COLUMNS
         columns += (Column("population_verdict", "pop_verdict"),) if args.claim is not None else ()
-    by_id = dict(zip(regions.ids, regions.geometries))
-    geoms = [by_id[r.id] for r in report.rows] if args.output else None
-    emit(args, rows, columns, metadata, header, footer, features=(geoms, regions.crs, "coverage"),
-         fields=ALL_FIELDS + CLAIM_COLUMNS + POPULATION_COLUMNS)
+    geoms = [g for g in regions.geometries for _ in report.ks] if args.output else None  # rows: region by region, k by k
+    show(args, SCREEN, report, rows, metadata, inputs=(regions, zones, spec), columns=columns,
+         features=(geoms, regions.crs, "coverage"))
     return 1 if args.fail_on_shortfall and report.shortfall else 0

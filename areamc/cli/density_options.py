@@ -3,16 +3,11 @@
 from __future__ import annotations
 
 import argparse
-import os
 
-from ..density import RASTER_VALUES, BlockDensity, ExpressionDensity, RasterDensity, block_counts
-from ..errors import LayerError, OptionError
-from ..expression import parse_expression
-from ..load import read_layer
+from ..density import RASTER_VALUES, DensitySpec, read_density
+from .common import flags
 
-__all__ = ["add_density_options", "DensityInput", "read_density", "build_density", "density_metadata"]
-
-_RASTER_EXT = (".tif", ".tiff", ".vrt", ".img", ".asc")
+__all__ = ["add_density_options", "read_density_option", "density_metadata"]
 
 
 def add_density_options(parser: argparse.ArgumentParser, *, required: bool) -> None:
@@ -30,56 +25,17 @@ def add_density_options(parser: argparse.ArgumentParser, *, required: bool) -> N
                         help="sample uniformly even where the density allows importance sampling")
 
 
-class DensityInput:
-    """What ``--density`` names, read but not yet on a plane."""
+def read_density_option(args) -> DensitySpec | None:
+    """Read the density source named by ``--density`` (blocks are loaded here, to be projected)."""
+    if args.density is None:
+        return None
+    with flags(layer="--density-layer", id_field="--density-id-field", input_crs="--density-input-crs"):
+        return read_density(args.density, kind=args.density_kind, layer=args.density_layer,
+                            count_field=args.count_field, values=args.raster_values, band=args.band)
 
-    def __init__(self, kind: str, spec: str, blocks=None, expression=None) -> None:
-        self.kind = kind
-        self.spec = spec
-        self.blocks = blocks
-        self.expression = expression
 
-
-def read_density(args) -> DensityInput | None:
-    """Read the density source named on the command line (blocks are loaded here, to be projected)."""
-    spec = args.density
+def density_metadata(args, spec: DensitySpec | None) -> dict | None:
+    """What the density source was, for result metadata."""
     if spec is None:
         return None
-    kind = args.density_kind
-    if kind == "auto":
-        if os.path.exists(spec):
-            kind = "raster" if spec.lower().endswith(_RASTER_EXT) else "blocks"
-        elif spec.lower().endswith(_RASTER_EXT + (".gpkg", ".shp", ".geojson")):
-            raise LayerError(f"{spec}: no such file")
-        else:
-            kind = "expression"
-    if kind == "blocks":
-        if not args.count_field:
-            raise OptionError(f"--density {spec}: a block layer needs --count-field FIELD")
-        blocks = read_layer(spec, layer=args.density_layer)
-        block_counts(blocks, args.count_field)  # validate before any work
-        return DensityInput(kind, spec, blocks=blocks)
-    if kind == "expression":
-        return DensityInput(kind, spec, expression=parse_expression(spec))
-    return DensityInput(kind, spec)
-
-
-def build_density(args, source: DensityInput, plane, projected_blocks=None, regions=None):
-    """Make the density source on `plane` (blocks already projected onto it)."""
-    if source.kind == "blocks":
-        return BlockDensity(projected_blocks, block_counts(source.blocks, args.count_field))
-    if source.kind == "expression":
-        return ExpressionDensity(source.expression, plane)
-    raster = RasterDensity(source.spec, plane, values=args.raster_values, band=args.band)
-    if regions is not None and not any(raster.overlaps(g) for g in regions.planar):
-        raise LayerError(f"{source.spec}: the raster does not overlap the regions")
-    return raster
-
-
-def density_metadata(args, source: DensityInput | None) -> dict | None:
-    """What the density source was, for result metadata."""
-    if source is None:
-        return None
-    return {"source": args.density, "kind": source.kind, "count_field": args.count_field,
-            "raster_values": args.raster_values if source.kind == "raster" else None,
-            "importance": not args.no_importance}
+    return {**spec.to_dict(), "importance": not args.no_importance}

@@ -4,14 +4,11 @@ from __future__ import annotations
 
 import sys
 
-import shapely
-
-from ..exact import geodesic_area, planar_area
-from ..load import list_layers, read_layer
+from ..describe import describe_layer
 from ..errors import OptionError
+from ..load import read_layer
 from ..output import Column, render, render_fields, write_text
 from ..vector import vector_driver
-from ..project import LONLAT, lonlat_bounds, project_layer, resolve_plane, transformer, transform_geometry
 from .common import add_layer_options, add_output_options, add_plane_options, check_outputs, output_format, run_metadata
 
 LABELS = {
@@ -48,36 +45,8 @@ def run(args) -> int:
     if vector_driver(args.output):
         raise OptionError(f"--output {args.output}: inspect writes text; use .csv, .json or a text file")
     check_outputs(args, [args.file])
-    layers = list_layers(args.file)
     layer = read_layer(args.file, layer=args.layer, id_field=args.id_field, input_crs=args.input_crs, kind="any")
-    info = {
-        "path": layer.path,
-        "layers": layers,
-        "layer": layer.layer,
-        "kind": f"{layer.kind}s",
-        "features": len(layer) + len(layer.empty) + len(layer.skipped),
-        "geometry_types": layer.geometry_types,
-        "crs": layer.crs.to_string(),
-        "crs_name": layer.crs.name,
-        "extent": [round(float(v), 6) for v in _bounds(layer.geometries)],
-        "invalid": len(layer.repaired),
-        "empty": len(layer.empty),
-    }
-    if layer.kind == "polygon":
-        projected = project_layer(layer, crs=args.crs, densify_m=args.densify)
-        plane = projected.plane
-        info["extent_lonlat"] = [round(v, 6) for v in lonlat_bounds(projected.lonlat)]
-        info["exact_planar_total"] = float(planar_area(projected.planar).sum())
-        info["geodesic_total"] = float(sum(geodesic_area(g) for g in projected.lonlat))
-    else:
-        to_lonlat = transformer(layer.crs, LONLAT)
-        lonlat = [transform_geometry(g, to_lonlat, f"{layer.path}: feature {fid}") for fid, g in zip(layer.ids, layer.geometries)]
-        info["extent_lonlat"] = [round(v, 6) for v in _bounds(lonlat)]
-        plane = resolve_plane(tuple(info["extent_lonlat"]), args.crs)
-        info["exact_planar_total"] = None
-        info["geodesic_total"] = None
-    info["equal_area_crs"] = plane.label
-    info["area_distortion"] = plane.distortion
+    info = describe_layer(layer, crs=args.crs, densify_m=args.densify).to_dict()
     fmt = output_format(args)
     if fmt == "table":
         text = render_fields(info, LABELS, AREA_FIELDS, args.units)
@@ -88,14 +57,9 @@ def run(args) -> int:
                         ";".join(f"{a}={b}" for a, b in v.items()) if isinstance(v, dict) else v)
                     for k, v in info.items()}
         columns = [Column(k, area=k in AREA_FIELDS) for k in LABELS]
-        metadata = run_metadata(args)
-        text = render([flat], columns, fmt=fmt, units=args.units, metadata=metadata)
+        text = render([flat], columns, fmt=fmt, units=args.units, metadata=run_metadata(args))
     if args.output:
         write_text(text, args.output)
     else:
         sys.stdout.write(text)
     return 0
-
-
-def _bounds(geoms):
-    return shapely.total_bounds(list(geoms))

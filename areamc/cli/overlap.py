@@ -2,24 +2,23 @@
 
 from __future__ import annotations
 
-import numpy as np
-
-from ..exact import FLAG_Z
-from ..errors import OptionError
 from ..output import Column, convert_rows, table
-from ..overlap import estimate_overlaps
-from ..project import project_layers, transform_geometry, transformer
+from ..overlap import estimate_overlaps, overlap_geometries
+from ..project import project_layers
 from .common import (
-    run_metadata,
+    Screen,
     add_layer_options,
     add_output_options,
     add_plane_options,
     add_sampling_options,
     add_zone_options,
     check_outputs,
-    emit,
+    flag_line,
+    flags,
     output_format,
     positive_float,
+    run_metadata,
+    show,
     stop_rule,
     zone_layer,
 )
@@ -37,20 +36,47 @@ COLUMNS = (
     Column("z", spec=".2f"),
     Column("flagged", "flag"),
 )
-ALL_FIELDS = COLUMNS + (Column("box_area", area=True),)
 PROFILE_COLUMNS = (
     Column("k"),
-    Column("exactly", area=True),
-    Column("exactly_ci_low", "ci_low", area=True),
-    Column("exactly_ci_high", "ci_high", area=True),
-    Column("exact_exactly", "exact", area=True),
-    Column("at_least", "at_least", area=True),
-    Column("at_least_ci_low", "ci_low", area=True),
-    Column("at_least_ci_high", "ci_high", area=True),
-    Column("exact_at_least", "exact", area=True),
+    Column("area_exactly", "exactly", area=True),
+    Column("area_exactly_ci_low", "ci_low", area=True),
+    Column("area_exactly_ci_high", "ci_high", area=True),
+    Column("exact_area_exactly", "exact", area=True),
+    Column("area_at_least", "at_least", area=True),
+    Column("area_at_least_ci_low", "ci_low", area=True),
+    Column("area_at_least_ci_high", "ci_high", area=True),
+    Column("exact_area_at_least", "exact", area=True),
     Column("z", spec=".2f"),
 )
-PROFILE_FIELDS = PROFILE_COLUMNS + (Column("at_least_stderr", area=True),)
+PROFILE_FIELDS = PROFILE_COLUMNS + (Column("area_at_least_stderr", area=True),)
+
+
+def _header(args, report, layers) -> list[str]:
+    what = "cross pairs" if args.other else "pairs"
+    run = report.run
+    return [
+        f"areamc overlap: {' x '.join(f'{lay.path} ({lay.layer}, {len(lay)} zones)' for lay in layers)}",
+        f"equal-area plane: {run.plane.label}; {run.confidence:.4g} Wilson intervals; seed {run.seed_entropy}; "
+        f"units {args.units}",
+        f"{len(report.rows)} overlapping {what} of {report.candidates} whose geometries meet",
+        "",
+    ]
+
+
+def _footer(args, report, rows) -> list[str]:
+    footer = []
+    if not report.rows:
+        footer.append("no overlapping pairs: the zones do not overlap" + (" above --min-share" if args.min_share else ""))
+    elif not args.no_exact:
+        footer += ["", flag_line(report.rows, "intersection area")]
+    if report.multiplicity and output_format(args) == "table":
+        profile = [m.to_dict() for m in report.multiplicity]
+        footer += ["", f"multiplicity profile (area covered by exactly k / at least k zones; exact: {report.exact_profile})"]
+        footer.append(table(profile, PROFILE_COLUMNS, args.units).rstrip("\n"))
+    return footer
+
+
+SCREEN = Screen(COLUMNS, COLUMNS + (Column("box_area", area=True),), _header, _footer)
 
 
 def add_parser(sub) -> None:
@@ -74,13 +100,12 @@ def add_parser(sub) -> None:
 
 def run(args) -> int:
     stop = stop_rule(args)
-    if not 0.0 <= args.min_share <= 1.0:
-        raise OptionError(f"--min-share: must lie in [0, 1], got {args.min_share!r}")
     inputs = [args.zones] + ([args.other] if args.other else [])
     check_outputs(args, inputs)
     layers = [zone_layer(args, args.zones, args.layer, args.id_field, args.input_crs)]
     if args.other:
-        layers.append(zone_layer(args, args.other, args.other_layer, args.other_id_field, args.other_input_crs))
+        with flags(layer="--other-layer", id_field="--other-id-field", input_crs="--other-input-crs"):
+            layers.append(zone_layer(args, args.other, args.other_layer, args.other_id_field, args.other_input_crs))
     projected = project_layers(layers, crs=args.crs, densify_m=args.densify)
     report = estimate_overlaps(
         projected[0],
@@ -88,53 +113,20 @@ def run(args) -> int:
         stop=stop,
         confidence=args.confidence,
         seed=args.seed,
+        sampler=args.sampler,
         chunk=args.chunk,
         min_share=args.min_share,
         exact=not args.no_exact,
         profile=not args.no_profile,
-        exact_budget_s=args.exact_budget,
+        exact_time_limit_s=args.exact_budget,
     )
     rows = [r.to_dict() for r in report.rows]
     profile = [m.to_dict() for m in report.multiplicity]
     metadata = {
         **run_metadata(args, inputs=layers),
         **report.metadata(),
-        "multiplicity": _convert(profile, args.units),
+        "multiplicity": convert_rows(profile, PROFILE_FIELDS, args.units),
     }
-    what = "cross pairs" if args.other else "pairs"
-    header = [
-        f"areamc overlap: {' x '.join(f'{l.path} ({l.layer}, {len(l)} zones)' for l in layers)}",
-        f"equal-area plane: {report.plane.label}; {report.confidence:.4g} Wilson intervals; seed {report.seed_entropy}; "
-        f"units {args.units}",
-        f"{len(rows)} overlapping {what} of {report.candidates} whose geometries meet",
-        "",
-    ]
-    footer = []
-    if not rows:
-        footer.append("no overlapping pairs: the zones do not overlap" + (" above --min-share" if args.min_share else ""))
-    flagged = sum(r.flagged for r in report.rows)
-    if flagged:
-        footer.append(f"{flagged} row(s) flagged: more than {FLAG_Z:g} standard errors from the exact area")
-    if profile and output_format(args) == "table":
-        footer += ["", f"multiplicity profile (area covered by exactly k / at least k zones; exact: {report.exact_profile})"]
-        footer.append(table(profile, PROFILE_COLUMNS, args.units).rstrip("\n"))
-    geoms = _pair_geometries(report, projected, layers[0]) if args.output else None
-    emit(args, rows, COLUMNS, metadata, header, footer, fields=ALL_FIELDS,
-         features=(geoms, layers[0].crs, "overlaps"))
+    geoms = overlap_geometries(report, projected[0], projected[1] if args.other else None) if args.output else None
+    show(args, SCREEN, report, rows, metadata, inputs=layers, features=(geoms, layers[0].crs, "overlaps"))
     return 0
-
-
-def _convert(profile, units):
-    return convert_rows(profile, PROFILE_FIELDS, units)
-
-
-def _pair_geometries(report, projected, first_layer):
-    """Intersection geometries of the reported pairs, back in the first layer's CRS."""
-    a = projected[0]
-    b = projected[-1]
-    back = transformer(a.plane.crs, first_layer.crs)
-    out = []
-    for row, (i, j) in zip(report.rows, report.pairs):
-        inter = a.planar[i].intersection(b.planar[j])
-        out.append(transform_geometry(inter, back, f"overlap {row.id_a} x {row.id_b}"))
-    return np.array(out, dtype=object)

@@ -1,0 +1,264 @@
+"""Samplers: where random points go, behind one interface and one factory.
+
+A *domain* says where points may fall and how uniforms become plane points:
+a :class:`Box` maps ``[0, 1)²`` onto an axis-aligned box of the equal-area
+plane; an importance proposal (:class:`areamc.density.Proposal`) maps
+``[0, 1)³`` onto points distributed like a density.  A *sampler* is built
+from a seed and a domain, in the shape of ``scipy.stats.qmc`` engines, and
+its ``random(n)`` returns the next `n` points as plane coordinates (metres).
+
+Every job gets its sampler from :func:`make_sampler`, by name or by class;
+:func:`register_sampler` adds a new kind without touching any job.
+
+The uniform sampler cuts each stream into blocks of :data:`BLOCK` points,
+block ``k`` drawn from its own ``SeedSequence`` child (spawn key
+``(..., k)``), so the points depend only on the seed and their position in
+the stream, never on how many are asked for at a time.  This is what makes
+results independent of the chunk size.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable, Protocol, runtime_checkable
+
+import numpy as np
+
+from .errors import OptionError
+from .seeds import child_seed
+
+__all__ = [
+    "BLOCK",
+    "Box",
+    "Domain",
+    "Sampler",
+    "UniformSampler",
+    "scale_to_box",
+    "make_sampler",
+    "register_sampler",
+    "SAMPLERS",
+    "SamplerFactory",
+    "sampler_name",
+]
+
+#: Points per independent random block of the uniform sampler.
+BLOCK = 1 << 16
+
+
+@dataclass(frozen=True)
+class Box:
+    """An axis-aligned box (xmin, ymin, xmax, ymax) in plane metres; a sampling domain of 2 uniforms."""
+
+    xmin: float
+    ymin: float
+    xmax: float
+    ymax: float
+
+    #: Uniforms per point.
+    dims = 2
+
+    @classmethod
+    def of(cls, bounds) -> "Box":
+        """The box of ``(xmin, ymin, xmax, ymax)`` bounds (shapely's ``bounds``), plane metres."""
+        xmin, ymin, xmax, ymax = (float(v) for v in bounds)
+        return cls(xmin, ymin, xmax, ymax)
+
+    @property
+    def area(self) -> float:
+        """Box area in m²."""
+        return (self.xmax - self.xmin) * (self.ymax - self.ymin)
+
+    def intersection(self, other: "Box") -> "Box | None":
+        """The overlap of two boxes, or None when they do not meet in a region of positive area."""
+        b = Box(max(self.xmin, other.xmin), max(self.ymin, other.ymin),
+                min(self.xmax, other.xmax), min(self.ymax, other.ymax))
+        return b if b.xmax > b.xmin and b.ymax > b.ymin else None
+
+    def map(self, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Map ``(n, 2)`` uniforms in [0, 1)² into the box; see :func:`scale_to_box`."""
+        return scale_to_box(u, self)
+
+
+def scale_to_box(u: np.ndarray, box: Box) -> tuple[np.ndarray, np.ndarray]:
+    """Map points of [0, 1)² to `box` (plane metres); returns ``(x, y)`` arrays.
+
+    Raises ValueError for a box with no area or non-finite corners.
+    """
+    if not (np.isfinite([box.xmin, box.ymin, box.xmax, box.ymax]).all() and box.area > 0):
+        raise ValueError(f"cannot sample a degenerate box {box}")
+    x = box.xmin + u[:, 0] * (box.xmax - box.xmin)
+    y = box.ymin + u[:, 1] * (box.ymax - box.ymin)
+    return x, y
+
+
+@runtime_checkable
+class Domain(Protocol):
+    """Where a sampler's points fall: `dims` uniforms per point, mapped to plane metres by `map`.
+
+    `area` is what a hit fraction is scaled by: m² for a box, the total
+    count (persons) for an importance proposal.
+    """
+
+    dims: int
+
+    @property
+    def area(self) -> float:
+        ...
+
+    def map(self, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Map ``(n, dims)`` uniforms in [0, 1) to ``(x, y)`` in plane metres."""
+        ...
+
+
+@runtime_checkable
+class Sampler(Protocol):
+    """A stream of points in a domain, built as ``Sampler(seed, domain)``.
+
+    ``random(n)`` returns the next `n` points as ``(x, y)`` in plane metres;
+    the points depend only on the seed and their position in the stream, so
+    drawing in chunks of any size gives the same points.
+    """
+
+    name: str
+    domain: Domain
+
+    def random(self, n: int) -> tuple[np.ndarray, np.ndarray]:
+        ...
+
+    def reset(self) -> None:
+        ...
+
+    def fast_forward(self, n: int) -> None:
+        ...
+
+    @property
+    def generated(self) -> int:
+        ...
+
+
+class _BlockStream:
+    """Uniforms in [0, 1)² from PCG64, in blocks of :data:`BLOCK` rows, block ``k`` from ``child_seed(seed, k)``.
+
+    Rows are drawn from a block only as they are asked for: a block's
+    generator yields its rows in order, so the first ``m`` rows of a block
+    are the same whether ``m`` or :data:`BLOCK` rows are drawn.
+    """
+
+    def __init__(self, seed: np.random.SeedSequence) -> None:
+        self._seed = seed
+        self._block = -1
+        self._rows = 0  # rows drawn so far from the current block's generator
+        self._rng: np.random.Generator | None = None
+
+    def take(self, position: int, n: int, out: np.ndarray) -> None:
+        """Fill ``out`` (``(n, 2)``) with the rows at stream positions ``position ..``."""
+        filled = 0
+        while filled < n:
+            k, offset = divmod(position + filled, BLOCK)
+            if k != self._block or offset != self._rows:
+                bits = np.random.PCG64(child_seed(self._seed, k))
+                bits.advance(2 * offset)  # one 64-bit draw per double, two doubles per row
+                self._rng, self._block, self._rows = np.random.Generator(bits), k, offset
+            take = min(n - filled, BLOCK - offset)
+            out[filled : filled + take] = self._rng.random((take, 2))
+            self._rows += take
+            filled += take
+
+
+class UniformSampler:
+    """Independent uniform points in a domain.
+
+    Parameters
+    ----------
+    seed : numpy.random.SeedSequence
+        The stream's root.  For a domain of 2 uniforms, block ``k`` uses
+        ``child_seed(seed, k)``; for more, uniforms ``2j`` and ``2j + 1`` come
+        from the stream ``child_seed(seed, j)``, so each pair of dimensions
+        is an independent stream.
+    domain : Domain
+        A :class:`Box` or an importance proposal.
+
+    Examples
+    --------
+    >>> from areamc.seeds import make_seed
+    >>> s = UniformSampler(make_seed(7), Box(0.0, 0.0, 10.0, 5.0))
+    >>> x, y = s.random(5); s.reset(); x2, _ = s.random(2); x3, _ = s.random(3)
+    >>> bool((x == np.concatenate([x2, x3])).all()), s.generated
+    (True, 5)
+    """
+
+    name = "uniform"
+
+    def __init__(self, seed: np.random.SeedSequence, domain: Domain) -> None:
+        self.domain = domain
+        dims = int(domain.dims)
+        if dims <= 2:
+            self._streams = [_BlockStream(seed)]
+        else:
+            self._streams = [_BlockStream(child_seed(seed, j)) for j in range((dims + 1) // 2)]
+        self._dims = dims
+        self._position = 0
+
+    def reset(self) -> None:
+        """Go back to the start of the stream."""
+        self._position = 0
+
+    def fast_forward(self, n: int) -> None:
+        """Skip the next `n` points."""
+        self._position += int(n)
+
+    @property
+    def generated(self) -> int:
+        """Position in the stream: points handed out (or skipped) since the last reset."""
+        return self._position
+
+    def unit(self, n: int) -> np.ndarray:
+        """The next `n` points as uniforms in [0, 1), shape ``(n, dims)``."""
+        out = np.empty((n, 2 * len(self._streams)))
+        for j, stream in enumerate(self._streams):
+            block = np.empty((n, 2))
+            stream.take(self._position, n, block)
+            out[:, 2 * j : 2 * j + 2] = block
+        self._position += n
+        return out[:, : self._dims]
+
+    def random(self, n: int) -> tuple[np.ndarray, np.ndarray]:
+        """The next `n` points as ``(x, y)`` in plane metres."""
+        return self.domain.map(self.unit(n))
+
+
+SamplerFactory = Callable[[np.random.SeedSequence, Domain], Sampler]
+
+#: Samplers by name.
+SAMPLERS: dict[str, SamplerFactory] = {"uniform": UniformSampler}
+
+
+def register_sampler(name: str, factory: SamplerFactory) -> None:
+    """Make `factory` (a class built as ``factory(seed, domain)``) available to every job as `name`."""
+    SAMPLERS[name] = factory
+
+
+def make_sampler(kind: str | SamplerFactory, seed: np.random.SeedSequence, domain: Domain) -> Sampler:
+    """Build the sampler every job uses: `kind` is a registered name or a factory.
+
+    Raises
+    ------
+    OptionError
+        For an unknown name (parameter ``sampler``).
+    """
+    if callable(kind):
+        return kind(seed, domain)
+    try:
+        factory = SAMPLERS[kind]
+    except (KeyError, TypeError):
+        raise OptionError(
+            f"{{param}}: unknown sampler {kind!r}; choose one of {', '.join(SAMPLERS)}", param="sampler"
+        ) from None
+    return factory(seed, domain)
+
+
+def sampler_name(kind: str | SamplerFactory) -> str:
+    """The name a sampler kind is recorded under in results."""
+    if isinstance(kind, str):
+        return kind
+    return str(getattr(kind, "name", getattr(kind, "__name__", "custom")))
