@@ -36,6 +36,8 @@ class AreaRow:
     Attributes
     ----------
     id : str
+    feature_index : int
+        Position of the feature in its layer as read (0-based; ``Layer.indices``).
     estimate, stderr, ci_low, ci_high : float
         Estimate, standard error and Wilson interval (m²).
     points, hits : int
@@ -58,6 +60,7 @@ class AreaRow:
     """
 
     id: str
+    feature_index: int
     estimate: float
     stderr: float
     ci_low: float
@@ -78,9 +81,10 @@ class AreaRow:
 
 @dataclass(frozen=True)
 class TraceRow:
-    """The running estimate of one feature after `points` points; areas in m²."""
+    """The running estimate of one feature (`feature_index`: its position in the layer) after `points` points; areas in m²."""
 
     id: str
+    feature_index: int
     points: int
     hits: int
     estimate: float
@@ -117,7 +121,8 @@ class AreaReport:
         for row, trace in zip(self.rows, self.traces):
             for point in trace:
                 est = AreaEstimate.from_counts(point.sums[0], point.points, row.box_area, self.run.confidence)
-                out.append(TraceRow(row.id, point.points, point.sums[0], est.estimate, est.stderr, est.ci_low, est.ci_high))
+                out.append(TraceRow(row.id, row.feature_index, point.points, point.sums[0], est.estimate, est.stderr,
+                                    est.ci_low, est.ci_high))
         return out
 
 
@@ -186,16 +191,18 @@ def estimate_areas(
         traces.append(run.trace)
         planar = float(exact_areas[i]) if exact else None
         geodesic = geodesic_area(layer.lonlat[i]) if exact else None
-        rows.append(_row(fid, run, confidence, planar, geodesic))
+        rows.append(_row(fid, layer.source.indices[i], run, confidence, planar, geodesic))
     info = RunInfo("area", layer.plane, confidence, int(root.entropy), sampler_name(sampler), stop, layer.densify_m)
     return AreaReport(tuple(rows), info, tuple(traces) if trace_every else ())
 
 
-def _row(fid: str, run: HitOrMissRun, confidence: float, planar: float | None, geodesic: float | None) -> AreaRow:
+def _row(fid: str, index: int, run: HitOrMissRun, confidence: float, planar: float | None,
+         geodesic: float | None) -> AreaRow:
     est = run.estimate(0, confidence)
     z = est.deviation(planar) if planar is not None else None
     return AreaRow(
         id=fid,
+        feature_index=index,
         estimate=est.estimate,
         stderr=est.stderr,
         ci_low=est.ci_low,

@@ -32,9 +32,9 @@ from .project import ProjectedLayer
 from .runinfo import RunInfo
 from .samplers import Box, SamplerFactory, make_sampler, sampler_name
 from .seeds import child_seed, job_root, make_seed
-from .sequential import FALLS_SHORT, check_claim, claim_decided, confidence_sequence, verdict
+from .sequential import FALLS_SHORT, UNDECIDED, check_claim, claim_decided, confidence_sequence, verdict
 from .stopping import StopRule, Stopper
-from .weighted import IMPORTANCE, NONE, SHARES, WeightedRun, weighted_run
+from .weighted import IMPORTANCE, NONE, SHARES, WeightedRun, check_weighted_rule, weighted_run
 
 __all__ = ["CoverageRow", "PopulationShare", "CoverageReport", "estimate_coverage"]
 
@@ -107,6 +107,8 @@ class CoverageRow:
     Attributes
     ----------
     id : str
+    feature_index : int
+        Position of the region in its layer as read (0-based; ``Layer.indices``).
     k : int
         The multiplicity: the share covered by at least `k` zones.
     share, stderr, ci_low, ci_high : float
@@ -139,6 +141,7 @@ class CoverageRow:
     """
 
     id: str
+    feature_index: int
     k: int
     share: float
     stderr: float
@@ -192,10 +195,21 @@ class CoverageReport:
             "exact_status": self.exact_status,
         }
 
+    def _verdicts(self):
+        for row in self.rows:
+            yield row.verdict
+            if row.population is not None:
+                yield row.population.verdict
+
     @property
     def shortfall(self) -> bool:
         """True when any region falls short of the claim, by area or (with a density) by population."""
-        return any(FALLS_SHORT in (row.verdict, row.population and row.population.verdict) for row in self.rows)
+        return FALLS_SHORT in set(self._verdicts())
+
+    @property
+    def undecided(self) -> bool:
+        """True when any verdict, by area or by population, is still undecided at the end of the budget."""
+        return UNDECIDED in set(self._verdicts())
 
 
 def _check_ks(ks) -> tuple[int, ...]:
@@ -263,6 +277,8 @@ def estimate_coverage(
     ks = _check_ks(ks)
     if claim is not None:
         claim = check_claim(claim)
+    if density is not None:
+        check_weighted_rule(stop)
     if stop.absolute is not None and not stop.absolute < 1:
         raise OptionError(f"{{param}}: a share tolerance must lie in (0, 1), got {stop.absolute!r}", param="tolerance")
     root = make_seed(seed)
@@ -294,8 +310,9 @@ def estimate_coverage(
                                  confidence, sampler, chunk, importance, exact)
         n_in = run.hits[0]
         for c, k in enumerate(ks):
-            rows.append(_row(rid, k, run.hits[c + 1], n_in, float(region_areas[r]), exact_shares.get(k), claim,
-                             confidence, run, None if people is None else people(c + 1, k)))
+            rows.append(_row(rid, regions.source.indices[r], k, run.hits[c + 1], n_in, float(region_areas[r]),
+                             exact_shares.get(k), claim, confidence, run,
+                             None if people is None else people(c + 1, k)))
     if density is not None:
         warn_nodata(density, views)
     info = RunInfo("coverage", regions.plane, confidence, int(root.entropy), sampler_name(sampler), stop,
@@ -318,7 +335,7 @@ def _exact_shares(region, near, ks, exact, limit_s) -> tuple[dict, str]:
     return shares, COMPUTED
 
 
-def _row(rid, k, hits, n, region_area, exact_share, claim, confidence, run, people) -> CoverageRow:
+def _row(rid, index, k, hits, n, region_area, exact_share, claim, confidence, run, people) -> CoverageRow:
     share = hits / n if n else math.nan
     stderr = math.sqrt(share * (1 - share) / n) if n else math.nan
     if claim is not None:
@@ -331,7 +348,7 @@ def _row(rid, k, hits, n, region_area, exact_share, claim, confidence, run, peop
         low, high, method = math.nan, math.nan, WILSON
     z = binomial_deviation(hits, n, exact_share) if exact_share is not None and n else None
     return CoverageRow(
-        id=rid, k=k, share=share, stderr=stderr, ci_low=low, ci_high=high, points=n, hits=hits,
+        id=rid, feature_index=index, k=k, share=share, stderr=stderr, ci_low=low, ci_high=high, points=n, hits=hits,
         region_area=region_area, covered=share * region_area, uncovered=(1 - share) * region_area,
         uncovered_ci_low=(1 - high) * region_area, uncovered_ci_high=(1 - low) * region_area,
         exact_share=exact_share, z=z, flagged=flagged(z),

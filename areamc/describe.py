@@ -31,7 +31,7 @@ class LayerDescription:
     layers : tuple of str
         Every layer of the file (one element for an in-memory layer).
     kind : str
-        "polygons" or "points".
+        "polygons", "points" or "mixed".
     features : int
         Features read, kept or not.
     geometry_types : dict
@@ -109,7 +109,7 @@ def describe_layer(layer: Layer, *, crs: str | pyproj.CRS | None = None,
         path=layer.path,
         layers=layers,
         layer=layer.layer,
-        kind=f"{layer.kind}s",
+        kind={"polygon": "polygons", "point": "points"}.get(layer.kind, layer.kind),
         features=len(layer) + len(layer.empty) + len(layer.skipped),
         geometry_types=dict(layer.geometry_types),
         crs=layer.crs.to_string(),

@@ -126,8 +126,8 @@ def accumulate(
 
 def _stage(draw, evaluate, budget, check, chunk, trace_every, progress, drawn_before) -> Sums:
     points = 0
-    sums: np.ndarray | None = None
-    sumsq: np.ndarray | None = None
+    totals: _OrderedSums | None = None
+    sums = sumsq = None
     trace: list[TracePoint] = []
     reason = None
     while points < budget:
@@ -138,14 +138,13 @@ def _stage(draw, evaluate, budget, check, chunk, trace_every, progress, drawn_be
             scores = scores[:, None]
         if scores.dtype == bool:
             scores = scores.astype(np.int64)
-        if sums is None:
-            sums = np.zeros(scores.shape[1], dtype=scores.dtype)
-            sumsq = np.zeros(scores.shape[1], dtype=scores.dtype)
+        if totals is None:
+            totals = _OrderedSums(scores.shape[1], scores.dtype)
         if trace_every:
-            _extend_trace(trace, scores, points, sums, trace_every)
-        sums = sums + scores.sum(axis=0)
-        sumsq = sumsq + (scores * scores).sum(axis=0)
+            _extend_trace(trace, scores, points, totals.current()[0], trace_every)
+        totals.add(scores)
         points += n
+        sums, sumsq = totals.current()
         if progress is not None:
             progress(drawn_before + points, points, sums)
         reason = check(sums, sumsq, points)
@@ -154,6 +153,57 @@ def _stage(draw, evaluate, budget, check, chunk, trace_every, progress, drawn_be
     if trace_every and points % trace_every:
         trace.append(TracePoint(points, tuple(v.item() for v in sums)))  # the final state, off the grid
     return Sums(points, sums, sumsq, tuple(trace), reason or BUDGET)
+
+
+#: Stream positions per block of the fixed summation order of real-valued scores.
+SUM_BLOCK = 4096
+
+
+class _OrderedSums:
+    """Running sums and sums of squares whose value does not depend on how the stream was chunked.
+
+    Integer scores (hit counts) add exactly.  Real-valued scores are summed
+    in a fixed order: each block of :data:`SUM_BLOCK` consecutive stream
+    positions by a left-to-right running sum (``numpy.cumsum``, strictly
+    sequential, unlike the pairwise ``sum``), then the block totals left to
+    right; a block cut by a chunk end waits for the next chunk.  So the same
+    points give the same digits for any chunk size.
+    """
+
+    def __init__(self, columns: int, dtype) -> None:
+        self.exact = np.issubdtype(dtype, np.integer)
+        self.dtype = np.int64 if self.exact else np.float64
+        self.sums = np.zeros(columns, dtype=self.dtype)
+        self.sumsq = np.zeros(columns, dtype=self.dtype)
+        self._pending = np.zeros((0, columns), dtype=self.dtype)
+
+    def add(self, scores: np.ndarray) -> None:
+        if self.exact:
+            self.sums = self.sums + scores.sum(axis=0)
+            self.sumsq = self.sumsq + (scores * scores).sum(axis=0)
+            return
+        rows = scores.astype(np.float64, copy=False)
+        if len(self._pending):
+            rows = np.concatenate([self._pending, rows])
+        full = len(rows) - len(rows) % SUM_BLOCK
+        if full:
+            blocks = rows[:full].reshape(-1, SUM_BLOCK, rows.shape[1])
+            self.sums = _fold(self.sums, np.cumsum(blocks, axis=1)[:, -1, :])
+            self.sumsq = _fold(self.sumsq, np.cumsum(blocks * blocks, axis=1)[:, -1, :])
+        self._pending = rows[full:]
+
+    def current(self) -> tuple[np.ndarray, np.ndarray]:
+        """The sums so far, the waiting partial block included (in the same fixed order)."""
+        if self.exact or not len(self._pending):
+            return self.sums, self.sumsq
+        rest = self._pending
+        return (_fold(self.sums, np.cumsum(rest, axis=0)[-1:]),
+                _fold(self.sumsq, np.cumsum(rest * rest, axis=0)[-1:]))
+
+
+def _fold(total: np.ndarray, parts: np.ndarray) -> np.ndarray:
+    """``total + parts[0] + parts[1] + ...`` added left to right."""
+    return np.cumsum(np.vstack([total[None, :], parts]), axis=0)[-1]
 
 
 def _extend_trace(trace: list[TracePoint], scores: np.ndarray, start: int, sums: np.ndarray, every: int) -> None:

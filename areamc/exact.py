@@ -17,7 +17,7 @@ import numpy as np
 import shapely
 from shapely.geometry.polygon import orient
 
-from .geodesy import WGS84
+from .geodesy import WGS84, quadrangle_area
 
 __all__ = [
     "planar_area",
@@ -30,6 +30,13 @@ __all__ = [
     "cell_total",
 ]
 
+#: Area of the WGS84 ellipsoid, m² (Snyder 1987, eq. 3-12 over the whole globe).
+_ELLIPSOID_AREA = float(quadrangle_area(-180.0, -90.0, 180.0, 90.0))
+#: A ring's Geod area of the wrong sign beyond this (m², one millionth of the ellipsoid)
+#: means it was reduced, not that the ring is degenerate.
+_REDUCED_SIGN = 1e-6 * _ELLIPSOID_AREA
+
+
 def planar_area(geoms) -> np.ndarray:
     """Exact area, m², of geometries given in an equal-area plane (metres)."""
     return np.asarray(shapely.area(geoms), dtype=float)
@@ -39,16 +46,32 @@ def geodesic_area(geom_lonlat) -> float:
     """Area, m², on the WGS84 ellipsoid of a polygon given in lon/lat degrees.
 
     Rings are oriented first (exterior counter-clockwise, holes clockwise), since
-    ``Geod.geometry_area_perimeter`` is signed and adds the rings' areas.
+    ``Geod.polygon_area_perimeter`` is signed and the rings' areas are added.
+    Polygons across the antimeridian (longitudes beyond ±180) and round a pole
+    (closed along the ±180 meridians and the pole, :mod:`areamc.globe`) are
+    measured as they are: Geod follows each short edge as a geodesic.  Geod
+    (GeographicLib's polygon area) reports a ring's signed area reduced to within
+    half the ellipsoid's area; a ring holding more than half of it (a band round
+    the globe, say) is put back by adding the ellipsoid's whole area.
     """
     parts = shapely.get_parts(geom_lonlat)
     total = 0.0
     for part in parts:
         if part.geom_type != "Polygon" or part.is_empty:
             continue
-        area, _ = WGS84.geometry_area_perimeter(orient(part, sign=1.0))
-        total += area
+        part = orient(part, sign=1.0)
+        total += _ring_area(part.exterior, 1.0)
+        total += sum(_ring_area(ring, -1.0) for ring in part.interiors)
     return abs(float(total))
+
+
+def _ring_area(ring, sign: float) -> float:
+    """Signed WGS84 area, m², of one ring oriented `sign` (+1 counter-clockwise), unreduced."""
+    xy = shapely.get_coordinates(ring)
+    area, _ = WGS84.polygon_area_perimeter(xy[:, 0], xy[:, 1])
+    if sign * area < -_REDUCED_SIGN:
+        area += sign * _ELLIPSOID_AREA
+    return float(area)
 
 
 def intersection_areas(a, b) -> np.ndarray:

@@ -21,7 +21,7 @@ import numpy as np
 
 from .errors import OptionError
 
-__all__ = ["FUNCTIONS", "VARIABLES", "Expression", "parse_expression"]
+__all__ = ["FUNCTIONS", "ARITY", "VARIABLES", "MAX_LENGTH", "MAX_DEPTH", "Expression", "parse_expression"]
 
 FUNCTIONS: dict[str, Callable] = {
     "exp": np.exp,
@@ -43,6 +43,16 @@ FUNCTIONS: dict[str, Callable] = {
     "radians": np.radians,
     "degrees": np.degrees,
 }
+#: Positional arguments each function takes: (fewest, most).
+ARITY: dict[str, tuple[int, int]] = {
+    "exp": (1, 1), "log": (1, 1), "log10": (1, 1), "sqrt": (1, 1), "sin": (1, 1), "cos": (1, 1),
+    "tan": (1, 1), "arctan2": (2, 2), "hypot": (2, 2), "abs": (1, 1), "where": (3, 3),
+    "minimum": (2, 2), "maximum": (2, 2), "clip": (3, 3), "floor": (1, 1), "ceil": (1, 1),
+    "radians": (1, 1), "degrees": (1, 1),
+}
+#: Longest expression text accepted, in characters, and deepest nesting of operations.
+MAX_LENGTH = 2_000
+MAX_DEPTH = 100
 VARIABLES = ("x", "y", "lon", "lat")
 CONSTANTS = {"pi": np.pi, "e": np.e}
 
@@ -89,8 +99,12 @@ class Expression:
 
     def evaluate(self, **variables: np.ndarray) -> np.ndarray:
         """Evaluate over arrays ``x``, ``y`` (plane metres) and ``lon``, ``lat`` (degrees)."""
-        with np.errstate(all="ignore"):
-            value = _eval(self.tree.body, variables)
+        try:
+            with np.errstate(all="ignore"):
+                value = _eval(self.tree.body, variables)
+        except (ArithmeticError, ValueError, TypeError, MemoryError) as err:  # numpy scalars rarely raise; be sure
+            raise OptionError(f"{{param}}: expression {self.text!r} cannot be evaluated ({type(err).__name__}: "
+                              f"{' '.join(str(err).split())[:120]})", param="density") from None
         shape = np.shape(next(iter(variables.values()))) if variables else ()
         return np.broadcast_to(np.asarray(value, dtype=float), shape).copy()
 
@@ -109,11 +123,20 @@ def _fail(text: str, node: ast.AST, what: str, verdict: str = "not allowed"):
 def parse_expression(text: str) -> Expression:
     """Parse and check a density expression, or raise :class:`OptionError` naming the offending part."""
     text = " ".join(str(text).split())  # one line, so column offsets point into the quoted text
+    if len(text) > MAX_LENGTH:
+        raise OptionError(f"{{param}}: the expression is {len(text):,} characters long; at most {MAX_LENGTH:,} "
+                          f"are accepted (it starts {text[:40]!r})", param="density")
     try:
         tree = ast.parse(text, mode="eval")
     except SyntaxError as err:
         col = (err.offset or 1)
         raise OptionError(f"{{param}}: syntax error in expression {text!r} at column {col}: {err.msg}", param="density") from None
+    except (RecursionError, MemoryError):
+        raise OptionError(f"{{param}}: the expression {text[:40]!r}... nests too deeply to read", param="density") from None
+    depth = _depth(tree)
+    if depth > MAX_DEPTH:
+        raise OptionError(f"{{param}}: the expression {text[:40]!r}... nests {depth} operations deep; at most "
+                          f"{MAX_DEPTH} (write long sums with fewer terms, or as a product)", param="density")
     names: set[str] = set()
     for node in ast.walk(tree):
         if isinstance(node, (ast.Expression, ast.Load)) or type(node) in _BINARY or type(node) in _UNARY or type(node) in _COMPARE:
@@ -138,6 +161,10 @@ def parse_expression(text: str) -> Expression:
                 _fail(text, node.func, "this call", f"not allowed (functions: {', '.join(FUNCTIONS)})")
             if node.keywords:
                 _fail(text, node, "keyword arguments")
+            fewest, most = ARITY[node.func.id]
+            if not fewest <= len(node.args) <= most:
+                wanted = f"{fewest}" if fewest == most else f"{fewest} to {most}"
+                _fail(text, node, f"{node.func.id}() with {len(node.args)} argument(s)", f"refused ({wanted} expected)")
             continue
         _fail(text, node, _DESCRIBE.get(type(node), type(node).__name__))
     for node in ast.walk(tree):
@@ -146,17 +173,27 @@ def parse_expression(text: str) -> Expression:
     return Expression(text, tree, frozenset(names))
 
 
+def _depth(tree: ast.AST) -> int:
+    """Deepest nesting of nodes, walked without recursion."""
+    deepest, stack = 0, [(tree, 1)]
+    while stack:
+        node, level = stack.pop()
+        deepest = max(deepest, level)
+        stack.extend((child, level + 1) for child in ast.iter_child_nodes(node))
+    return deepest
+
+
 def _is_called(tree: ast.AST, name: ast.Name) -> bool:
     return any(isinstance(n, ast.Call) and n.func is name for n in ast.walk(tree))
 
 
 def _eval(node: ast.AST, env: dict):
     if isinstance(node, ast.Constant):
-        return np.float64(node.value)  # numpy scalars: 1/0 gives inf, not ZeroDivisionError
+        return np.asarray(float(node.value))  # 0-d arrays: 1/0 and e**e**e**e give inf, not exceptions
     if isinstance(node, ast.Name):
         if node.id in env:
             return env[node.id]
-        return CONSTANTS[node.id]
+        return np.asarray(CONSTANTS[node.id])
     if isinstance(node, ast.BinOp):
         return _BINARY[type(node.op)](_eval(node.left, env), _eval(node.right, env))
     if isinstance(node, ast.UnaryOp):

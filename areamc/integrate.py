@@ -26,7 +26,7 @@ from .runinfo import RunInfo
 from .samplers import SamplerFactory, sampler_name
 from .seeds import child_seed, job_root, make_seed
 from .stopping import StopRule
-from .weighted import NONE, TOTAL, weighted_run
+from .weighted import NONE, TOTAL, check_weighted_rule, weighted_run
 
 __all__ = ["IntegrateRow", "IntegrateReport", "integrate_density"]
 
@@ -37,6 +37,8 @@ class IntegrateRow:
 
     Attributes
     ----------
+    feature_index : int
+        Position of the region in its layer as read (0-based; ``Layer.indices``).
     estimate, stderr, ci_low, ci_high : float
         Total (count unit of the source, e.g. persons), standard error and
         interval (Wilson for importance sampling, normal for uniform).
@@ -59,6 +61,7 @@ class IntegrateRow:
     """
 
     id: str
+    feature_index: int
     estimate: float
     stderr: float
     ci_low: float
@@ -126,6 +129,7 @@ def integrate_density(
     IntegrateReport
     """
     stop = stop or StopRule()
+    check_weighted_rule(stop)
     confidence = check_confidence(confidence)
     root = make_seed(seed)
     streams = job_root(root, "integrate")
@@ -150,14 +154,15 @@ def integrate_density(
         truth = view.exact_total() if exact else None
         if run is None:
             z = normal_deviation(0.0, truth, 0.0) if truth is not None else None
-            rows.append(IntegrateRow(rid, 0.0, 0.0, 0.0, 0.0, 0.0, float(areas[r]), 0, NONE, truth, z, flagged(z),
-                                     NONE, 0))  # no density near the region: nothing was sampled
+            rows.append(IntegrateRow(rid, regions.source.indices[r], 0.0, 0.0, 0.0, 0.0, 0.0, float(areas[r]), 0,
+                                     NONE, truth, z, flagged(z), NONE, 0))  # no density near the region: nothing was sampled
             continue
         est = run.total(confidence)
         z = est.deviation(truth) if truth is not None else None
         rows.append(
             IntegrateRow(
-                id=rid, estimate=est.estimate, stderr=est.stderr, ci_low=est.ci_low, ci_high=est.ci_high,
+                id=rid, feature_index=regions.source.indices[r], estimate=est.estimate, stderr=est.stderr,
+                ci_low=est.ci_low, ci_high=est.ci_high,
                 mean_density=float(est.estimate / areas[r]) if areas[r] > 0 else math.nan, region_area=float(areas[r]),
                 points=run.points, method=run.method, exact=truth, z=z, flagged=flagged(z),
                 stop_reason=run.reason, pilot_points=run.pilot_points,

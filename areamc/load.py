@@ -2,13 +2,22 @@
 
 This is the first step of every command: it validates the file, the layer and
 the id field, reads the CRS, repairs invalid polygons and sets empty ones
-aside, and returns a frozen :class:`Layer`.  Geometries stay in the layer's
+aside, and returns a frozen :class:`Layer`.  A truncated or damaged file
+(Shapefile index against its .shp, SQLite's check of a GeoPackage, errors
+GDAL reports while reading), text that does not decode, malformed geometries
+and repeated ids are refused, each naming the file and the feature.  Geometries stay in the layer's
 own CRS; projection is :mod:`areamc.project`'s job.
 """
 
 from __future__ import annotations
 
+import codecs
+import logging
 import os
+import sqlite3
+import struct
+import sys
+import urllib.parse
 import warnings
 from collections import Counter
 from dataclasses import dataclass, field
@@ -20,12 +29,21 @@ import pyproj
 import shapely
 from shapely.geometry import shape
 
-from .errors import AreamcWarning, CRSError, LayerError
+from .errors import AreamcWarning, CRSError, LayerError, OptionError
+from . import globe
 
-__all__ = ["Layer", "read_layer", "list_layers", "parse_crs", "layer_from_geometries"]
+__all__ = ["Layer", "read_layer", "list_layers", "parse_crs", "layer_from_geometries", "MAX_PLANE_COORDINATE_M"]
 
 _POLYGONAL = {"Polygon", "MultiPolygon"}
 _PUNCTUAL = {"Point", "MultiPoint"}
+#: Largest distance from a projected CRS's origin, in metres, that a coordinate may lie at
+#: (100,000 km, 2.5 times the Earth's circumference); beyond it a coordinate is refused as corrupt.
+MAX_PLANE_COORDINATE_M = 1e8
+#: Geographic coordinates beyond these bounds (degrees) are refused: longitudes within ±360
+#: (so 0..360 data is accepted), latitudes within ±90.
+_MAX_LON_DEG, _MAX_LAT_DEG = 360.0, 90.0
+#: Duplicated ids named in a refusal; the rest are counted ("and N more").
+_DUPLICATES_NAMED = 3
 
 
 @dataclass(frozen=True)
@@ -44,8 +62,9 @@ class Layer:
         Polygons/MultiPolygons (or Points for point layers), 2-D, valid, non-empty.
     properties : tuple of dict
         The attribute values of each kept feature.
-    kind : {"polygon", "point"}
-        What the layer holds.
+    kind : {"polygon", "point", "mixed"}
+        What the layer holds; "mixed" (points and polygons, each feature as
+        its own type) only from ``read_layer(kind="any")``.
     geometry_types : dict
         Count of each geometry type as read, before repair, over all features.
     repaired : tuple of str
@@ -54,6 +73,10 @@ class Layer:
         Ids of features with an empty or missing geometry; they are not in `ids`.
     skipped : tuple of str
         Ids of features whose geometry type does not fit the layer's kind.
+    indices : tuple of int
+        Position of each kept feature in the layer as read (0-based, counting
+        empty and skipped features): result rows carry it as ``feature_index``,
+        which tells features apart when ids repeat.  Default ``0, 1, 2, ...``.
     """
 
     path: str
@@ -67,6 +90,13 @@ class Layer:
     repaired: tuple[str, ...] = ()
     empty: tuple[str, ...] = ()
     skipped: tuple[str, ...] = ()
+    indices: tuple[int, ...] = ()
+
+    def __post_init__(self) -> None:
+        if not self.indices:
+            object.__setattr__(self, "indices", tuple(range(len(self.ids))))
+        elif len(self.indices) != len(self.ids):
+            raise ValueError(f"{self.path}: {len(self.indices)} feature indices for {len(self.ids)} ids")
 
     def __len__(self) -> int:
         return len(self.ids)
@@ -92,12 +122,56 @@ def parse_crs(text: str, param: str = "crs") -> pyproj.CRS:
 
 
 def list_layers(path: str) -> list[str]:
-    """Return the layer names of a vector file, or raise :class:`LayerError`."""
+    """Return the layer names of a vector file, or raise :class:`LayerError`.
+
+    A GeoPackage (any SQLite database) must first pass SQLite's own
+    integrity check (:func:`_check_sqlite`).
+    """
     _check_exists(path)
+    _check_sqlite(path)
     try:
         return list(fiona.listlayers(path))
     except (fiona.errors.FionaError, OSError, ValueError) as err:
-        raise LayerError(f"{path}: not a readable vector file ({_short(err)})") from err
+        raise LayerError(f"{path}: not a readable vector file, or a truncated or damaged one ({_short(err)})") from err
+
+
+#: The first 16 bytes of every SQLite database, so of every GeoPackage (sqlite.org, "Database File Format", 1.3.1).
+_SQLITE_MAGIC = b"SQLite format 3\x00"
+#: SQLite's result codes for a damaged file: SQLITE_CORRUPT and SQLITE_NOTADB (sqlite.org, "Result and Error Codes").
+_SQLITE_DAMAGED = (11, 26)
+
+
+def _check_sqlite(path: str) -> None:
+    """Refuse a GeoPackage whose SQLite file fails ``PRAGMA quick_check``, before GDAL opens it.
+
+    GDAL reads a damaged b-tree page as the end of the table, or fails part
+    way, or (measured once in 681 randomly damaged pages, GDAL 3.9.2) crashes;
+    SQLite's own check reads every page read-only and names the damage.  A
+    database that cannot be opened read-only for another reason (locked,
+    write-ahead log without its index) is left to GDAL.
+    """
+    try:
+        with open(path, "rb") as f:
+            if f.read(16) != _SQLITE_MAGIC:
+                return
+    except OSError:
+        return
+    uri = "file:" + urllib.parse.quote(os.path.abspath(path)) + "?mode=ro"
+    try:
+        con = sqlite3.connect(uri, uri=True)
+        try:
+            rows = con.execute("PRAGMA quick_check").fetchall()
+        finally:
+            con.close()
+    except UnicodeDecodeError as err:  # SQLite quoted damaged schema text in its message
+        raise LayerError(f"{path}: truncated or damaged file: SQLite finds its schema malformed") from err
+    except sqlite3.DatabaseError as err:
+        if getattr(err, "sqlite_errorcode", None) in _SQLITE_DAMAGED or "malformed" in str(err):
+            raise LayerError(f"{path}: truncated or damaged file: SQLite reports {_short(err)}") from err
+        return
+    if rows != [("ok",)]:
+        found = " ".join(str(r[0]) for r in rows[:2])
+        raise LayerError(f"{path}: truncated or damaged file: SQLite's integrity check fails ({_short(Exception(found))})")
 
 
 def read_layer(
@@ -107,6 +181,8 @@ def read_layer(
     id_field: str | None = None,
     input_crs: str | pyproj.CRS | None = None,
     kind: str = "polygon",
+    encoding: str | None = None,
+    allow_duplicate_ids: bool = False,
 ) -> Layer:
     """Read a polygon (or point) layer.
 
@@ -115,14 +191,23 @@ def read_layer(
     path : str or path-like
         Any vector file fiona opens (Shapefile, GeoPackage, GeoJSON, ...).
     layer : str, optional
-        Layer name, for files with several layers; default the first layer.
+        Layer name, for files with several layers; default the first layer,
+        with an :class:`~areamc.errors.AreamcWarning` naming it and the others.
     id_field : str, optional
         Attribute used to label features; default the feature id.
     input_crs : str or pyproj.CRS, optional
         CRS to assume when the file declares none (and to override it if it does).
-    kind : {"polygon", "point"}
-        What the caller needs.  ``"any"`` accepts either, deciding from the
-        first non-empty geometry.
+    kind : {"polygon", "point", "any"}
+        What the caller needs; features of another type are skipped with a
+        warning that counts them by type.  ``"any"`` classifies feature by
+        feature: the layer's kind is "polygon", "point" or "mixed".
+    encoding : str, optional
+        Text encoding of the attributes (a Python codec name such as
+        ``"latin-1"``), passed to fiona; default the file's own declaration
+        (a Shapefile's ``.cpg``).
+    allow_duplicate_ids : bool
+        Accept features that share an id (default: refused, naming the
+        duplicated values); rows then tell them apart by ``feature_index``.
 
     Returns
     -------
@@ -133,9 +218,14 @@ def read_layer(
     Raises
     ------
     LayerError
-        Missing or unreadable file, unknown layer or id field, no usable features.
+        Missing, unreadable, truncated or damaged file; unknown layer or id
+        field; text that does not decode; malformed geometries (a ring of
+        fewer than 3 points, coordinates that are not finite or lie beyond
+        ±360°/±90° or :data:`MAX_PLANE_COORDINATE_M`); duplicate ids; no
+        usable features.
     CRSError
-        No CRS in the file and none given, or an unknown ``input_crs``.
+        No CRS in the file and none given, an unknown ``input_crs``, or a CRS
+        not tied to the Earth (an engineering ``LOCAL_CS``).
     """
     path = os.fspath(path)
     names = list_layers(path)
@@ -143,10 +233,18 @@ def read_layer(
         if not names:
             raise LayerError(f"{path}: holds no vector layers")
         layer = names[0]
+        if len(names) > 1:
+            warnings.warn(AreamcWarning(
+                f"{path}: holds {len(names)} layers; using the first, {layer!r} (the others: "
+                f"{_some([repr(n) for n in names[1:]])}); choose one with {{param}}", param="layer"), stacklevel=2)
     elif layer not in names:
         raise LayerError(f"{path}: no layer named {layer!r}; layers: {', '.join(names)}")
+    if encoding is not None:
+        _check_encoding(encoding)
+    _check_shapefile_index(path, layer)
+    watch = _ReadWatch()
     try:
-        with fiona.open(path, layer=layer) as src:
+        with watch, fiona.open(path, layer=layer, encoding=encoding) as src:
             crs = _layer_crs(src, path, input_crs)
             fields = list(src.schema.get("properties", {}))
             if id_field is not None and id_field not in fields:
@@ -154,32 +252,173 @@ def read_layer(
                     f"{path}: {{param}} {id_field!r} is not a field of layer {layer!r}; "
                     f"fields: {', '.join(fields) or '(none)'}", param="id_field"
                 )
-            records = [(feat.id, feat.geometry, dict(feat.properties)) for feat in src]
-    except (fiona.errors.FionaError, OSError, ValueError) as err:
+            declared = _feature_count(src)
+            records = []
+            for feat in src:
+                records.append((feat.id, feat.geometry, dict(feat.properties)))
+                watch.read(feat.id)
+    except (fiona.errors.FionaError, OSError, ValueError, LookupError) as err:
         raise LayerError(f"{path}: cannot read layer {layer!r} ({_short(err)})") from err
-    return _build_layer(path, layer, crs, records, id_field, kind)
+    watch.check(path, len(records), declared, encoding)
+    return _build_layer(path, layer, crs, records, id_field, kind, allow_duplicate_ids)
 
 
-def _build_layer(path, layer, crs, records, id_field, kind) -> Layer:
+def _check_encoding(encoding: str) -> None:
+    try:
+        codecs.lookup(encoding)
+    except (LookupError, TypeError) as err:
+        raise OptionError(f"{{param}}: unknown text encoding {encoding!r} (give a name such as utf-8 or latin-1)",
+                          param="encoding") from err
+
+
+def _feature_count(src) -> int | None:
+    """The feature count the layer declares, or None when the driver cannot tell without reading."""
+    try:
+        count = len(src)
+    except (TypeError, ValueError, fiona.errors.FionaError):
+        return None
+    return count if count >= 0 else None
+
+
+def _check_shapefile_index(path: str, layer: str) -> None:
+    """Refuse a Shapefile whose .shp is shorter than its .shx index says (a truncated or damaged file).
+
+    Each .shx record gives the offset and length (16-bit words) of one
+    feature in the .shp (ESRI Shapefile Technical Description, 1998, p. 23);
+    a feature that would end past the .shp's last byte was cut off.  GDAL
+    reads such a feature as having no geometry, which must not pass for an
+    empty feature.
+    """
+    if os.path.isdir(path):
+        shp = os.path.join(path, layer + ".shp")
+    elif path.lower().endswith(".shp"):
+        shp = path
+    else:
+        return
+    stem = shp[:-4]
+    shx = next((stem + ext for ext in (".shx", ".SHX") if os.path.exists(stem + ext)), None)
+    if shx is None or not os.path.exists(shp):
+        return
+    try:
+        size = os.path.getsize(shp)
+        with open(shx, "rb") as f:
+            index = f.read()
+    except OSError:
+        return  # fiona reports unreadable files
+    count = max(0, (len(index) - 100) // 8)
+    words = struct.unpack(f">{2 * count}i", index[100:100 + 8 * count])
+    for i in range(count):
+        start, length = 2 * words[2 * i], 2 * words[2 * i + 1]
+        end = start + 8 + length
+        if start < 100 or length < 0 or end > size:
+            raise LayerError(
+                f"{shp}: truncated or damaged: its .shx indexes {count} features, but feature {i} "
+                f"(bytes {start:,} to {end:,}) does not fit in the .shp's {size:,} bytes"
+            )
+
+
+class _ReadWatch:
+    """What GDAL and fiona report while a layer is read, attributed to the feature being read.
+
+    GDAL errors (CE_Failure and worse) reach Python as ERROR records of the
+    ``fiona`` loggers; text fiona cannot decode comes as a WARNING of
+    ``fiona.ogrext`` ("Failed to decode ...") with the value set to None; an
+    error message GDAL gives in bytes that do not decode reaches
+    ``sys.unraisablehook``.  A report made while feature *k* is fetched
+    belongs to feature *k*; one after the last feature ends the reading.
+    """
+
+    _DECODE = "Failed to decode"
+
+    def __init__(self) -> None:
+        self.errors: list[tuple[str | None, str]] = []
+        self.undecoded: list[tuple[str | None, str]] = []
+        self._pending_errors: list[str] = []
+        self._pending_undecoded: list[str] = []
+        self._last: str | None = None
+        self._handler = _Collect(self._note)
+        self._hook = None
+
+    def _note(self, record: logging.LogRecord) -> None:
+        message = " ".join(str(record.getMessage()).split())
+        if record.levelno >= logging.ERROR:
+            self._pending_errors.append(message)
+        elif message.startswith(self._DECODE):
+            self._pending_undecoded.append(message)
+
+    def _unraisable(self, unraisable) -> None:
+        self._pending_errors.append(f"GDAL reported an error in bytes that do not decode ({unraisable.exc_value})")
+
+    def __enter__(self):
+        logging.getLogger("fiona").addHandler(self._handler)
+        self._hook, sys.unraisablehook = sys.unraisablehook, self._unraisable
+        return self
+
+    def __exit__(self, *exc) -> None:
+        logging.getLogger("fiona").removeHandler(self._handler)
+        sys.unraisablehook = self._hook
+        self._flush(None)
+
+    def _flush(self, fid) -> None:
+        self.errors += [(fid, m) for m in self._pending_errors]
+        self.undecoded += [(fid, m) for m in self._pending_undecoded]
+        self._pending_errors, self._pending_undecoded = [], []
+
+    def read(self, fid) -> None:
+        """Feature `fid` has just been read: what was reported since the last one is its."""
+        self._flush(str(fid))
+        self._last = str(fid)
+
+    def check(self, path: str, read: int, declared: int | None, encoding: str | None) -> None:
+        """Refuse the file if anything was reported (damage first, then undecodable text)."""
+        if self.errors:
+            fid, message = self.errors[0]
+            where = f"reading feature {fid}" if fid is not None else (
+                f"after feature {self._last}" if self._last is not None else "before the first feature")
+            more = f" ({len(self.errors)} read errors in all)" if len(self.errors) > 1 else ""
+            raise LayerError(f"{path}: truncated or damaged file: GDAL failed {where}: {message}{more}")
+        if declared is not None and read != declared:
+            raise LayerError(f"{path}: truncated or damaged file: the layer declares {declared} features "
+                             f"but only {read} could be read")
+        if self.undecoded:
+            fid, message = self.undecoded[0]
+            codec = f"as {encoding!r}" if encoding else "with the file's declared encoding (a Shapefile's .cpg)"
+            raise LayerError(
+                f"{path}: feature {fid}: attribute text cannot be decoded {codec} ({message}); "
+                f"name the encoding it is in with {{param}}, for example latin-1", param="encoding"
+            )
+
+
+class _Collect(logging.Handler):
+    def __init__(self, note) -> None:
+        super().__init__(logging.WARNING)
+        self._note_record = note
+
+    def emit(self, record: logging.LogRecord) -> None:
+        self._note_record(record)
+
+
+def _build_layer(path, layer, crs, records, id_field, kind, allow_duplicate_ids=False) -> Layer:
+    source = f"{path} (layer {layer})"
     types: Counter = Counter()
-    ids, geoms, props = [], [], []
+    ids, geoms, props, indices = [], [], [], []
     repaired, empty, skipped = [], [], []
-    for fid, geometry, properties in records:
+    skipped_types: Counter = Counter()
+    for position, (fid, geometry, properties) in enumerate(records):
         label = _label(fid, properties, id_field, path)
-        geom = shape(geometry) if geometry is not None else None
+        geom = _geometry(geometry, crs, source, label)
         if geom is None or geom.is_empty:
             types["(empty)"] += 1
             empty.append(label)
             continue
         types[geom.geom_type] += 1
-        if kind == "any":
-            kind = "point" if geom.geom_type in _PUNCTUAL else "polygon"
-        wanted = _POLYGONAL if kind == "polygon" else _PUNCTUAL
-        if geom.geom_type not in wanted:
+        if not _fits(geom, kind):
             skipped.append(label)
+            skipped_types[geom.geom_type] += 1
             continue
         geom = shapely.force_2d(geom)
-        if kind == "polygon" and not geom.is_valid:
+        geom = globe.normalize(geom, crs, f"{source}: feature {label}")  # across ±180 and round the poles
+        if geom.geom_type in _POLYGONAL and not geom.is_valid:
             geom = _repair(geom)
             repaired.append(label)
             if geom.is_empty:
@@ -188,10 +427,11 @@ def _build_layer(path, layer, crs, records, id_field, kind) -> Layer:
         ids.append(label)
         geoms.append(geom)
         props.append(properties)
-    source = f"{path} (layer {layer})"
+        indices.append(position)
+    wanted = {"polygon": "polygons", "point": "points"}.get(kind, "polygons or points")
     if not ids:
-        what = "polygons" if kind in ("polygon", "any") else "points"
-        raise LayerError(f"{source}: no {what} to work with ({_describe(types)})")
+        raise LayerError(f"{source}: no {wanted} to work with ({_describe(types)})")
+    _check_duplicates(source, ids, id_field, allow_duplicate_ids)
     if repaired:
         warnings.warn(
             f"{source}: repaired {len(repaired)} invalid polygon(s) with make_valid: "
@@ -208,7 +448,8 @@ def _build_layer(path, layer, crs, records, id_field, kind) -> Layer:
         )
     if skipped:
         warnings.warn(
-            f"{source}: skipped {len(skipped)} feature(s) that are not {kind}s: " + _some(skipped),
+            f"{source}: skipped {len(skipped)} feature(s) that are not {wanted} "
+            f"({_counts(skipped_types)}): " + _some(skipped),
             AreamcWarning,
             stacklevel=3,
         )
@@ -219,12 +460,147 @@ def _build_layer(path, layer, crs, records, id_field, kind) -> Layer:
         ids=tuple(ids),
         geometries=np.array(geoms, dtype=object),
         properties=tuple(props),
-        kind=kind,
+        kind=_kind_of(kind, geoms),
         geometry_types=dict(types),
         repaired=tuple(repaired),
         empty=tuple(empty),
         skipped=tuple(skipped),
+        indices=tuple(indices),
     )
+
+
+def _fits(geom, kind: str) -> bool:
+    if kind == "polygon":
+        return geom.geom_type in _POLYGONAL
+    if kind == "point":
+        return geom.geom_type in _PUNCTUAL
+    return geom.geom_type in _POLYGONAL or geom.geom_type in _PUNCTUAL
+
+
+def _kind_of(kind: str, geoms) -> str:
+    """The kind of a layer of kept geometries: as asked, or for "any" decided over every feature."""
+    if kind != "any":
+        return kind
+    points = sum(g.geom_type in _PUNCTUAL for g in geoms)
+    if points == len(geoms):
+        return "point"
+    return "polygon" if points == 0 else "mixed"
+
+
+def _geometry(geometry, crs: pyproj.CRS, source: str, label: str):
+    """A feature's shapely geometry (None when it has none); malformed ones are refused, naming the feature.
+
+    Refused: a polygon ring of fewer than 3 distinct points, coordinates that
+    are not finite numbers, and coordinates out of range for `crs`
+    (:func:`_check_coordinates`).
+    """
+    if geometry is None:
+        return None
+    data = getattr(geometry, "__geo_interface__", geometry)
+    try:
+        geom = shape(data)
+    except (ValueError, TypeError, AttributeError, KeyError, shapely.errors.GEOSException) as err:
+        short = _short_ring(data)
+        if short is not None:
+            raise LayerError(f"{source}: feature {label}: a polygon ring of {short} distinct point(s); "
+                             "a ring needs at least 3") from err
+        raise LayerError(f"{source}: feature {label}: unreadable geometry ({_short(err)})") from err
+    _check_coordinates(geom, crs, source, label)
+    if geom.geom_type in _POLYGONAL or geom.geom_type == "GeometryCollection":
+        short = _fewest_ring_points(geom)
+        if short is not None:
+            raise LayerError(f"{source}: feature {label}: a polygon ring of {short} distinct point(s); "
+                             "a ring needs at least 3")
+    return geom
+
+
+def _short_ring(data) -> int | None:
+    """Distinct points of the first polygon ring in a GeoJSON-like mapping that has only 1 or 2, else None."""
+    data = getattr(data, "__geo_interface__", data)
+    try:
+        kind = data.get("type")
+    except AttributeError:
+        return None
+    if kind == "GeometryCollection":
+        for part in data.get("geometries") or ():
+            short = _short_ring(part)
+            if short is not None:
+                return short
+        return None
+    polygons = [data.get("coordinates")] if kind == "Polygon" else data.get("coordinates") if kind == "MultiPolygon" else ()
+    for rings in polygons or ():
+        for ring in rings or ():
+            distinct = len({tuple(p)[:2] for p in ring})
+            if 0 < distinct < 3:
+                return distinct
+    return None
+
+
+def _fewest_ring_points(geom) -> int | None:
+    """Like :func:`_short_ring`, for a shapely geometry (vectorised over its rings)."""
+    parts = shapely.get_parts(geom)
+    polygons = parts[shapely.get_type_id(parts) == 3]  # 3: Polygon (shapely.GeometryType.POLYGON)
+    if not polygons.size:
+        return None
+    rings = shapely.get_rings(polygons)
+    coords, which = shapely.get_coordinates(rings, return_index=True)
+    if not coords.size:
+        return None
+    distinct = np.unique(np.column_stack([which, coords]), axis=0)
+    per_ring = np.bincount(distinct[:, 0].astype(int), minlength=len(rings))
+    short = per_ring[(per_ring > 0) & (per_ring < 3)]
+    return int(short[0]) if short.size else None
+
+
+def _check_coordinates(geom, crs: pyproj.CRS, source: str, label: str) -> None:
+    """Refuse non-finite coordinates, and coordinates no real data in `crs` can have.
+
+    Geographic CRSs: longitude within ±360° (0..360 data is accepted),
+    latitude within ±90°.  Projected CRSs: within :data:`MAX_PLANE_COORDINATE_M`
+    metres of the origin, in the CRS's own unit.
+    """
+    xy = shapely.get_coordinates(geom)
+    if not xy.size:
+        return
+    finite = np.isfinite(xy).all(axis=1)
+    if not finite.all():
+        x, y = xy[~finite][0]
+        raise LayerError(f"{source}: feature {label}: coordinate ({x:g}, {y:g}) is not a finite number")
+    if crs.is_geographic:
+        bad = (np.abs(xy[:, 0]) > _MAX_LON_DEG) | (np.abs(xy[:, 1]) > _MAX_LAT_DEG)
+        if bad.any():
+            x, y = xy[bad][0]
+            raise LayerError(f"{source}: feature {label}: coordinate ({x:g}, {y:g}) lies outside longitude "
+                             f"±{_MAX_LON_DEG:g}° / latitude ±{_MAX_LAT_DEG:g}° of {crs.name}")
+        return
+    factor = (crs.axis_info[0].unit_conversion_factor if crs.axis_info else 1.0) or 1.0
+    bad = np.abs(xy).max(axis=1) * factor > MAX_PLANE_COORDINATE_M
+    if bad.any():
+        x, y = xy[bad][0]
+        raise LayerError(f"{source}: feature {label}: coordinate ({x:g}, {y:g}) lies more than "
+                         f"{MAX_PLANE_COORDINATE_M / 1000:,.0f} km from the origin of {crs.name}")
+
+
+def _check_duplicates(source: str, ids: list[str], id_field: str | None, allowed: bool) -> None:
+    """Refuse ids that label more than one kept feature, naming a few; with `allowed`, warn instead."""
+    counts = Counter(ids)
+    repeated = [value for value, n in counts.items() if n > 1]
+    if not repeated:
+        return
+    named = ", ".join(f"{value!r} ({counts[value]} features)" for value in repeated[:_DUPLICATES_NAMED])
+    if len(repeated) > _DUPLICATES_NAMED:
+        named += f" and {len(repeated) - _DUPLICATES_NAMED} more"
+    what = f"{{id_field}} {id_field!r} has duplicate values" if id_field else "duplicate ids"
+    params = ("id_field", "allow_duplicate_ids") if id_field else ("allow_duplicate_ids",)
+    if not allowed:
+        raise LayerError(f"{source}: {what}: {named}; ids must tell features apart, or pass "
+                         "{allow_duplicate_ids} to keep them (rows then carry feature_index)", params=params)
+    warnings.warn(AreamcWarning(f"{source}: {what}: {named}; kept ({{allow_duplicate_ids}}): "
+                                "rows tell them apart by feature_index", params=params), stacklevel=4)
+
+
+def _counts(types: Counter) -> str:
+    return ", ".join(f"{n} {t}" for t, n in sorted(types.items()))
 
 
 def _repair(geom):
@@ -253,9 +629,15 @@ def _layer_crs(src, path, input_crs) -> pyproj.CRS:
     if src.crs:
         wkt = src.crs.to_wkt()
         if wkt:
-            declared = pyproj.CRS.from_wkt(wkt)
+            try:
+                declared = pyproj.CRS.from_wkt(wkt)
+            except pyproj.exceptions.CRSError as err:
+                if input_crs is None:
+                    raise CRSError(f"{path}: the file's CRS cannot be read ({_short(err)}); state it with {{param}}",
+                                   param="input_crs") from err
     if input_crs is not None:
         given = input_crs if isinstance(input_crs, pyproj.CRS) else parse_crs(input_crs, "input_crs")
+        _check_earth_crs(given, "{param}", "input_crs")
         if declared is not None and not declared.equals(given, ignore_axis_order=True):
             warnings.warn(
                 AreamcWarning(f"{path}: {{param}} {given.name!r} overrides the file's CRS {declared.name!r}",
@@ -265,7 +647,26 @@ def _layer_crs(src, path, input_crs) -> pyproj.CRS:
         return given
     if declared is None:
         raise CRSError(f"{path}: the file declares no CRS; state it with {{param}} (e.g. EPSG:4326)", param="input_crs")
+    _check_earth_crs(declared, f"{path}: the file's CRS", "input_crs")
     return declared
+
+
+def _check_earth_crs(crs: pyproj.CRS, what: str, param: str) -> None:
+    """Refuse a CRS that is neither geographic nor projected (an engineering LOCAL_CS, geocentric, vertical).
+
+    Such coordinates cannot be placed on the ellipsoid, so no equal-area plane
+    or geodesic area can be computed from them.
+    """
+    if crs.is_geographic or crs.is_projected:
+        return
+    kinds = {
+        "Engineering CRS": "an engineering (local) CRS, not tied to the Earth",
+        "Geocentric CRS": "a geocentric CRS (x, y, z from the Earth's centre)",
+        "Vertical CRS": "a vertical CRS (heights only)",
+    }
+    kind = kinds.get(crs.type_name, f"a {crs.type_name}, neither geographic nor projected")
+    raise CRSError(f"{what} {crs.name!r} is {kind}; areamc cannot place it on the ellipsoid; "
+                   "state the geographic or projected CRS the coordinates are in with {param}", param=param)
 
 
 def _check_exists(path: str) -> None:
@@ -299,11 +700,15 @@ def layer_from_geometries(
     ids=None,
     name: str = "geometries",
     kind: str = "polygon",
+    allow_duplicate_ids: bool = True,
 ) -> Layer:
     """Build a :class:`Layer` from shapely geometries already in memory.
 
     Geometries are given in `crs` (EPSG code, PROJ string, WKT or CRS); they
-    get the same repair and empty-geometry handling as a file would.
+    get the same checks, repair and empty-geometry handling as a file would.
+    `ids` are the caller's own labels, so repeats are kept (rows tell them
+    apart by ``feature_index``); ``allow_duplicate_ids=False`` refuses them
+    as :func:`read_layer` does by default.
     """
     geoms = list(geometries)
     if ids is None:
@@ -312,7 +717,8 @@ def layer_from_geometries(
     if len(ids) != len(geoms):
         raise LayerError(f"{name}: {len(ids)} ids for {len(geoms)} geometries")
     crs = crs if isinstance(crs, pyproj.CRS) else parse_crs(str(crs), "crs")
+    _check_earth_crs(crs, "{param}", "crs")
     records = [
         (i, None if g is None else shapely.geometry.mapping(g), {}) for i, g in zip(ids, geoms)
     ]
-    return _build_layer(name, "memory", crs, records, None, kind)
+    return _build_layer(name, "memory", crs, records, None, kind, allow_duplicate_ids)

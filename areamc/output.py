@@ -3,7 +3,10 @@
 This module only formats: it receives rows as dicts with areas in m² and
 converts the columns it is told hold areas into the chosen unit.  Files are
 written to a temporary name beside the target and renamed into place, so a
-failed run never leaves a partial file.
+failed run never leaves a partial file; an :class:`OutputBatch` renames
+several files only once all are written.  :func:`check_output_path` refuses,
+before any work, an output path that would replace an input or one of its
+sidecar files, or that cannot be written.
 """
 
 from __future__ import annotations
@@ -13,13 +16,30 @@ import io
 import json
 import math
 import os
+import shutil
 import tempfile
-from typing import Iterable, Sequence
+from contextlib import contextmanager, nullcontext
+from typing import Iterable, Mapping, Sequence
 
 from .errors import OptionError
 from .units import area_factor
 
-__all__ = ["FORMATS", "Column", "convert_rows", "render", "render_fields", "table", "write_text", "check_output_path", "format_number"]
+__all__ = [
+    "FORMATS",
+    "Column",
+    "convert_rows",
+    "render",
+    "render_fields",
+    "table",
+    "write_text",
+    "check_output_path",
+    "dataset_files",
+    "OutputBatch",
+    "cannot_write",
+    "format_number",
+    "SHAPEFILE_PARTS",
+    "SQLITE_SIDECARS",
+]
 
 FORMATS = ("table", "csv", "json")
 
@@ -165,31 +185,274 @@ def render(
     raise OptionError(f"{{param}}: unknown format {fmt!r}; choose one of {', '.join(FORMATS)}", param="fmt")
 
 
-def check_output_path(path: str | None, inputs: Iterable[str] = ()) -> None:
-    """Refuse an output path whose folder is missing or that would overwrite an input."""
-    if path is None:
-        return
-    folder = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(folder):
-        raise OptionError(f"{{param}} {path}: folder {folder} does not exist", param="output")
-    target = os.path.abspath(path)
-    for source in inputs:
-        if os.path.exists(source) and os.path.abspath(source) == target:
-            raise OptionError(f"{{param}} {path}: would overwrite the input file", param="output")
+#: The files of a Shapefile, beside its ``.shp``: ``.shx`` index and ``.dbf`` attributes (ESRI 1998,
+#: Shapefile Technical Description, p. 2), ``.prj`` CRS, ``.cpg`` code page, ``.qix``/``.sbn``/``.sbx``
+#: spatial indexes (common practice).
+SHAPEFILE_PARTS = (".shp", ".shx", ".dbf", ".prj", ".cpg", ".qix", ".sbn", ".sbx")
+#: Files SQLite keeps beside an open database (a GeoPackage): rollback journal, write-ahead log and its
+#: shared-memory index (sqlite.org, "Temporary Files Used By SQLite").  A stray journal beside a
+#: database is taken for a hot journal and rolled back into it, so it must never be written by areamc.
+SQLITE_SIDECARS = ("-journal", "-wal", "-shm")
+_SQLITE_EXT = (".gpkg", ".sqlite", ".db")
+#: GDAL's sidecars of a raster (auxiliary metadata, overviews, masks) and its world file (common practice).
+_RASTER_EXT = (".tif", ".tiff")
+_RASTER_SIDECARS = (".aux.xml", ".ovr", ".msk")
 
 
-def write_text(text: str, path: str) -> None:
-    """Write `text` to `path` atomically (temporary file in the same folder, then rename)."""
-    folder = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(prefix=".areamc-", dir=folder)
+def dataset_files(path: str) -> list[str]:
+    """The files that make up the dataset at `path`: the path itself, then every sidecar a reader may open.
+
+    A Shapefile ``x.shp`` brings ``x.shx``, ``x.dbf``, ... (:data:`SHAPEFILE_PARTS`, in lower and
+    upper case, and ``x.shp.xml``); a GeoPackage (or other SQLite file) its :data:`SQLITE_SIDECARS`;
+    a GeoTIFF its ``.aux.xml``, ``.ovr``, ``.msk`` and ``.tfw`` files.  The names are listed
+    whether or not the files exist, spelt beside `path` as given (readers look for sidecars
+    there; :func:`check_output_path` also looks beside a symlink's target).  Paths only: no CRS
+    or units involved.
+    """
+    root, ext = os.path.splitext(path)
+    lower = ext.lower()
+    files = [path]
+    if lower == ".shp":
+        files += [root + part for part in SHAPEFILE_PARTS if part != ext]
+        files += [root + part.upper() for part in SHAPEFILE_PARTS if part.upper() != ext]
+        files.append(path + ".xml")
+    elif lower in _SQLITE_EXT:
+        files += [path + side for side in SQLITE_SIDECARS]
+    elif lower in _RASTER_EXT:
+        files += [path + side for side in _RASTER_SIDECARS] + [root + ".tfw"]
+    return files
+
+
+def _same_file(a: str, b: str) -> bool:
+    """Whether `a` and `b` are one file: the same real path (symlinks and ``..`` resolved), or,
+    where both exist, the same inode (hard links, case-insensitive file systems)."""
+    if os.path.realpath(a) == os.path.realpath(b):
+        return True
     try:
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; give the file the usual mode
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as handle:
-            handle.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
+        return os.path.samefile(a, b)
+    except OSError:
+        return False
+
+
+def _clash(path: str, dataset: str) -> str | None:
+    """The file of `dataset` (itself or a sidecar) that writing `path` would replace, or None.
+
+    Sidecars are looked for beside `dataset` as spelt and, if it is a symlink, beside its target too.
+    """
+    spellings = [dataset]
+    real = os.path.realpath(dataset)
+    if real != os.path.abspath(dataset):
+        spellings.append(real)
+    for spelling in spellings:
+        for name in dataset_files(spelling):
+            if _same_file(path, name):
+                return name
+    # Shapefile parts are found whatever the case of their extension; a folder input holds Shapefiles.
+    out_folder = os.path.realpath(os.path.dirname(os.path.abspath(path)))
+    out_stem, out_ext = os.path.splitext(os.path.basename(path))
+    if out_ext.lower() not in SHAPEFILE_PARTS:
+        return None
+    if os.path.isdir(dataset) and out_folder == real:
+        return dataset
+    for spelling in spellings:
+        stem, ext = os.path.splitext(os.path.basename(spelling))
+        folder = os.path.dirname(os.path.abspath(spelling))
+        if ext.lower() == ".shp" and out_stem == stem and out_folder == os.path.realpath(folder):
+            return os.path.join(folder, os.path.basename(path))
+    return None
+
+
+def _writable(path: str, mode: int = os.W_OK) -> bool:
+    """Whether this process may write `path`, and its mode grants write to someone: a file or folder
+    made read-only (``chmod a-w``) is refused even to root, whom :func:`os.access` always allows."""
+    return os.access(path, mode) and bool(os.stat(path).st_mode & 0o222)
+
+
+def check_output_path(
+    path: str | None,
+    inputs: Iterable[str | None] = (),
+    *,
+    param: str = "output",
+    outputs: Mapping[str, str | None] | None = None,
+) -> None:
+    """Refuse, before any work, an output path that would replace an input or cannot be written.
+
+    Parameters
+    ----------
+    path : str or None
+        The output file (None or empty: nothing to check).
+    inputs : iterable of str
+        Input datasets; `path` may be none of them nor any of their sidecars
+        (:func:`dataset_files`), compared by real path (:func:`os.path.realpath`) and, where both
+        exist, by :func:`os.path.samefile`.  None entries are skipped.
+    param : str
+        The parameter that gave `path`, named in the error.
+    outputs : mapping of parameter name to path, optional
+        The run's other outputs: `path` may not be one of them (or a sidecar of one).
+
+    Raises
+    ------
+    OptionError
+        When `path` is an input or an input's sidecar, another output, an existing folder or a
+        special file, an existing read-only file, or lies in a folder that is missing or not writable
+        (read-only means no write permission for this process, or no write bit at all).
+        (A full disk shows only while writing: see :func:`write_text`.)
+    """
+    if not path:
+        return
+    for source in inputs:
+        if not source:
+            continue
+        hit = _clash(path, source)
+        if hit is not None:
+            if os.path.isdir(source):
+                raise OptionError(f"{{param}} {path}: would add a Shapefile part to the input folder {source}",
+                                  param=param)
+            if _same_file(hit, source):
+                same = "" if os.path.abspath(path) == os.path.abspath(source) else " (the same file)"
+                raise OptionError(f"{{param}} {path}: would overwrite the input {source}{same}", param=param)
+            raise OptionError(f"{{param}} {path}: would overwrite {hit}, a sidecar file of the input {source}",
+                              param=param)
+    for other_param, other in (outputs or {}).items():
+        if other and (_clash(path, other) is not None or _clash(other, path) is not None):
+            what = "the same file as" if _same_file(path, other) else "a sidecar file of"
+            raise OptionError(f"{{{param}}} {path}: {what} {{{other_param}}} {other}; give each output its own path",
+                              params=(param, other_param))
+    target = os.path.abspath(path)
+    folder = os.path.dirname(target)
+    if os.path.isdir(path):
+        raise OptionError(f"{{param}} {path}: is a folder; give a file name", param=param)
+    if not os.path.isdir(folder):
+        missing = "is not a folder" if os.path.exists(folder) else "does not exist"
+        raise OptionError(f"{{param}} {path}: folder {folder} {missing}", param=param)
+    if os.path.exists(path):
+        if not os.path.isfile(path):
+            raise OptionError(f"{{param}} {path}: not a regular file (areamc replaces its output files whole)",
+                              param=param)
+        if not _writable(path):
+            raise OptionError(f"{{param}} {path}: the file is read-only; areamc will not replace it", param=param)
+    if not _writable(folder, os.W_OK | os.X_OK):
+        raise OptionError(f"{{param}} {path}: folder {folder} is not writable", param=param)
+
+
+def cannot_write(err: BaseException, path: str) -> OSError:
+    """An OSError naming the target `path` (not the temporary file) for a failure while writing it.
+
+    `err` is an OSError (its errno and reason are kept) or a GDAL error reported by fiona (its
+    first sentence is kept).  When the disk holding `path` has less than 1 MiB free, the reason
+    says so.
+    """
+    if isinstance(err, OSError):
+        reason = err.strerror or str(err)
+        code = err.errno
+    else:  # a GDAL error reported by fiona: keep its first sentence
+        reason = " ".join(str(err).split()).split(". Failed to write record")[0][:200]
+        code = None
+    try:
+        free = shutil.disk_usage(os.path.dirname(os.path.abspath(path))).free
+    except OSError:
+        free = None
+    if free is not None and free < 1 << 20 and "space" not in reason.lower():
+        reason += f" ({free:,} bytes free on the disk)"
+    return OSError(code, f"cannot write: {reason}", path)
+
+
+def _discard(tmp: str) -> None:
+    for leftover in (tmp, *(tmp + side for side in SQLITE_SIDECARS)):
+        try:
+            if os.path.lexists(leftover):
+                os.unlink(leftover)
+        except OSError:
+            pass
+
+
+class OutputBatch:
+    """Output files written as one: each is written under a temporary name beside its target,
+    and all are renamed into place only when the batch closes without an error.
+
+    Use it as a context manager.  On any exception (including ``KeyboardInterrupt`` and the
+    exception the command line raises on SIGTERM) every temporary file, with any SQLite journal,
+    is removed and no target is touched.  The renames at the end are in the order the files were
+    staged; they fail only if a folder changes meanwhile, since :func:`check_output_path` checked
+    each target before any work.
+
+    >>> import os, tempfile
+    >>> folder = tempfile.mkdtemp()
+    >>> with OutputBatch() as batch:
+    ...     write_text("a", os.path.join(folder, "one.csv"), batch=batch)
+    ...     write_text("b", os.path.join(folder, "two.csv"), batch=batch)
+    ...     sorted(os.listdir(folder)) == ["one.csv", "two.csv"]
+    False
+    >>> sorted(os.listdir(folder))
+    ['one.csv', 'two.csv']
+    >>> import shutil; shutil.rmtree(folder)
+    """
+
+    def __init__(self) -> None:
+        self._staged: list[tuple[str, str]] = []
+
+    @contextmanager
+    def staging(self, path: str, suffix: str = "", *, create: bool = True):
+        """Yield a temporary name beside `path` to write (created empty, or absent if not `create`).
+
+        An OSError inside is raised again naming `path`; the temporary file is removed when the
+        batch fails.  It is renamed to `path` when the batch commits.
+        """
+        folder = os.path.dirname(os.path.abspath(path))
+        try:
+            fd, tmp = tempfile.mkstemp(prefix=".areamc-", suffix=suffix, dir=folder)
+            self._staged.append((tmp, path))
+            os.close(fd)
+            if create:
+                umask = os.umask(0)
+                os.umask(umask)
+                os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; give the file the usual mode
+            else:
+                os.unlink(tmp)
+            yield tmp
+        except OSError as err:
+            if err.filename == path:  # already names the target (see cannot_write)
+                raise
+            raise cannot_write(err, path) from err
+
+    def commit(self) -> None:
+        """Rename every staged file into place (an OSError names the target)."""
+        staged, self._staged = self._staged, []
+        try:
+            while staged:
+                tmp, path = staged[0]
+                try:
+                    os.replace(tmp, path)
+                except OSError as err:
+                    raise cannot_write(err, path) from err
+                staged.pop(0)
+        finally:
+            for tmp, _ in staged:
+                _discard(tmp)
+
+    def discard(self) -> None:
+        """Remove every staged temporary file; no target is touched."""
+        staged, self._staged = self._staged, []
+        for tmp, _ in staged:
+            _discard(tmp)
+
+    def __enter__(self) -> "OutputBatch":
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if exc_type is None:
+            self.commit()
+        else:
+            self.discard()
+
+
+def write_text(text: str, path: str, *, batch: OutputBatch | None = None) -> None:
+    """Write `text` (UTF-8) to `path` atomically: a temporary file in the same folder, then a rename.
+
+    With `batch`, the rename waits until the batch commits.  A failure while writing (a full
+    disk, a folder made read-only) raises an OSError naming `path` and leaves no file.
+    """
+    with nullcontext(batch) if batch is not None else OutputBatch() as files:
+        with files.staging(path) as tmp:
+            with open(tmp, "w", encoding="utf-8", newline="") as handle:
+                handle.write(text)

@@ -44,14 +44,17 @@ _PROFILE_STREAM = 1
 class OverlapRow:
     """Overlap of zone `id_a` (first layer) and zone `id_b` (second layer, or the same one).
 
-    Areas in m² of the equal-area plane.  `share_a` and `share_b` are the
-    estimate divided by the exact planar area of each zone; `exact_planar` is
-    shapely's intersection area and `z` the estimate's deviation from it in
+    `feature_index_a` and `feature_index_b` are the zones' positions in their
+    layers as read (0-based; ``Layer.indices``).  Areas in m² of the equal-area
+    plane.  `share_a` and `share_b` are the estimate divided by the exact planar
+    area of each zone; `exact_planar` is shapely's intersection area and `z` the estimate's deviation from it in
     standard errors (binomial mid-p score, :mod:`areamc.checks`).
     """
 
     id_a: str
     id_b: str
+    feature_index_a: int
+    feature_index_b: int
     estimate: float
     stderr: float
     ci_low: float
@@ -205,7 +208,8 @@ def estimate_overlaps(
         z = est.deviation(planar) if planar is not None else None
         rows.append(
             OverlapRow(
-                id_a=a.ids[i], id_b=other.ids[j], estimate=est.estimate, stderr=est.stderr,
+                id_a=a.ids[i], id_b=other.ids[j], feature_index_a=a.source.indices[i],
+                feature_index_b=other.source.indices[j], estimate=est.estimate, stderr=est.stderr,
                 ci_low=est.ci_low, ci_high=est.ci_high, share_a=share_a, share_b=share_b,
                 points=est.points, hits=est.hits, box_area=est.box_area, exact_planar=planar,
                 z=z, flagged=flagged(z), stop_reason=run.reason, pilot_points=run.pilot_points,

@@ -9,19 +9,24 @@ latitude-longitude cells spread over the data's extent are projected and their
 planar areas compared with the closed-form area of the same cells on the WGS84
 ellipsoid (Snyder 1987, eq. 3-12 with the authalic ``q`` function); pyproj's
 areal scale factors are read alongside.  See docs/methods.md.
+
+Lon/lat data across the antimeridian or round a pole arrive in the canonical
+form of :mod:`areamc.globe`; here their extent is taken the short way round
+(:func:`lonlat_bounds`), the plane is chosen for it (oblique or polar LAEA), and
+their planar copies are fitted to the plane's seam, if it has one.
 """
 
 from __future__ import annotations
 
 import math
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
 import pyproj
 import shapely
 
-from .errors import AreamcWarning, CRSError, NotEqualAreaError
+from . import globe
+from .errors import CRSError, NotEqualAreaError
 from .geodesy import WGS84, quadrangle_area
 from .load import Layer, parse_crs
 
@@ -40,6 +45,7 @@ __all__ = [
     "project_layers",
     "DEFAULT_DENSIFY_M",
     "MAX_AREA_DISTORTION",
+    "MAX_DENSIFIED_VERTICES",
 ]
 
 #: Geographic WGS84 with (longitude, latitude) axis order in degrees.
@@ -49,11 +55,19 @@ LONLAT = pyproj.CRS.from_epsg(4326)
 #: geographic layer).  At this step planar and geodesic areas of county-sized
 #: polygons agree to better than 1e-8 relative (docs/methods.md).
 DEFAULT_DENSIFY_M = 1000.0
+#: Most vertices densification may create over a layer (memory about 100 bytes a vertex).
+MAX_DENSIFIED_VERTICES = 20_000_000
 #: Largest relative area error tolerated of an "equal-area" plane over the data.
 #: True equal-area projections measure below 1e-9; UTM (scale 0.9996) near 8e-4.
 MAX_AREA_DISTORTION = 1e-6
 #: Angular radius (degrees) up to which a Lambert azimuthal plane is chosen.
 _LAEA_MAX_RADIUS_DEG = 60.0
+#: Data reaching a pole get a polar LAEA if they stay within this many degrees of it (its hemisphere).
+_POLAR_MAX_RADIUS_DEG = 90.0
+#: Latitude (degrees) the distortion cells stay within.  Closer to a pole, PROJ's numerical
+#: areal scale loses digits (polar LAEA reads 1 − 3.3e-9 at 89.89°) and a cell's closed-form
+#: area too (q(φ2) − q(φ1) cancels); data reaching the pole are measured up to 89°.
+_CELL_MAX_LAT = 89.0
 _METRES_PER_DEGREE = 111_320.0
 _GLOBAL_PLANE = "EPSG:6933"
 
@@ -100,7 +114,8 @@ class ProjectedLayer:
         Densified geometries in the equal-area plane (metres).
     lonlat : numpy.ndarray of shapely geometries
         The same densified geometries in WGS84 longitude/latitude (degrees),
-        for geodesic areas.
+        for geodesic areas, in the canonical form of :mod:`areamc.globe`
+        (unwrapped across the antimeridian, closed over a pole).
     plane : EqualAreaPlane
     densify_m : float
         Densification step used, metres along an edge in the source CRS.
@@ -158,36 +173,86 @@ def densify(geoms: np.ndarray, crs: pyproj.CRS, step_m: float = DEFAULT_DENSIFY_
     """
     if not step_m > 0:
         raise CRSError(f"{{param}}: step must be positive, got {step_m}", param="densify_m")
-    return shapely.segmentize(geoms, _step_in_crs_units(crs, step_m))
+    step = _step_in_crs_units(crs, step_m)
+    vertices = float(np.sum(shapely.length(geoms))) / step + float(np.sum(shapely.get_num_coordinates(geoms)))
+    if vertices > MAX_DENSIFIED_VERTICES:
+        raise CRSError(
+            f"{{param}}: a step of {step_m:g} m would give about {vertices:,.0f} vertices; at most "
+            f"{MAX_DENSIFIED_VERTICES:,} are made (use a coarser step)", param="densify_m")
+    return shapely.segmentize(geoms, step)
 
 
 def lonlat_bounds(geoms_lonlat: np.ndarray) -> tuple[float, float, float, float]:
-    """Return (west, south, east, north) in degrees of geometries given in lon/lat."""
-    west, south, east, north = shapely.total_bounds(geoms_lonlat)
-    return float(west), float(south), float(east), float(north)
+    """Return (west, south, east, north) in degrees of geometries given in lon/lat.
+
+    The longitudes span the shortest way round the globe that holds every
+    geometry (:func:`areamc.globe.lonlat_extent`): west in [-180, 180), east
+    beyond 180 when the data cross the antimeridian (e.g. 177 to 182 for Fiji).
+    """
+    return globe.lonlat_extent(geoms_lonlat)
 
 
 def choose_plane(bounds: tuple[float, float, float, float]) -> pyproj.CRS:
     """Pick an equal-area plane for data within `bounds` (west, south, east, north; degrees).
 
-    A Lambert azimuthal equal-area projection on the WGS84 ellipsoid centred on
-    the extent (Snyder 1987, ch. 24) when every corner lies within 60 degrees of
-    arc of the centre; otherwise the global Lambert cylindrical equal-area
-    EPSG:6933 (standard parallels 30 degrees).
+    East may exceed 180 (an extent across the antimeridian, :func:`lonlat_bounds`).
+    In order:
+
+    * data reaching one pole and staying in its hemisphere, or spanning more than
+      180 degrees of longitude within 60 degrees of arc of a pole: the polar aspect
+      of the Lambert azimuthal equal-area projection (lat_0 = ±90) on WGS84
+      (Snyder 1987, ch. 24), where a ring round the pole is an ordinary ring;
+    * every corner within 60 degrees of arc of the extent's centre and at most 180
+      degrees of longitude: LAEA centred on the extent (oblique, and across the
+      antimeridian when the extent is);
+    * otherwise the Lambert cylindrical equal-area projection with standard
+      parallels ±30: EPSG:6933 when the extent lies within ±180 degrees, else the
+      same projection centred on the extent's middle meridian (so its seam falls
+      outside the data).
     """
     west, south, east, north = bounds
-    lon0 = round((west + east) / 2, 4)
+    span = east - west
+    lon0 = _wrap_lon(round((west + east) / 2, 4)) if span < 360 else 0.0
     lat0 = round((south + north) / 2, 4)
+    pole = _polar_side(south, north, span)
+    if pole:
+        return _laea(pole, lon0 if span <= 180 else 0.0)
     corners_lon = [west, east, west, east, lon0, lon0]
     corners_lat = [south, south, north, north, south, north]
     _, _, dist = WGS84.inv([lon0] * 6, [lat0] * 6, corners_lon, corners_lat)
     radius_deg = max(dist) / _METRES_PER_DEGREE
-    if radius_deg <= _LAEA_MAX_RADIUS_DEG and east - west <= 180:
-        return pyproj.CRS.from_proj4(
-            f"+proj=laea +lat_0={lat0:g} +lon_0={lon0:g} +x_0=0 +y_0=0 "
-            "+datum=WGS84 +units=m +no_defs +type=crs"
-        )
-    return pyproj.CRS.from_user_input(_GLOBAL_PLANE)
+    if radius_deg <= _LAEA_MAX_RADIUS_DEG and span <= 180:
+        return _laea(lat0, lon0)
+    if west >= -180 and east <= 180:
+        return pyproj.CRS.from_user_input(_GLOBAL_PLANE)
+    return pyproj.CRS.from_proj4(
+        f"+proj=cea +lat_ts=30 +lon_0={lon0:g} +x_0=0 +y_0=0 +datum=WGS84 +units=m +no_defs +type=crs"
+    )
+
+
+def _laea(lat0: float, lon0: float) -> pyproj.CRS:
+    return pyproj.CRS.from_proj4(
+        f"+proj=laea +lat_0={lat0:g} +lon_0={lon0:g} +x_0=0 +y_0=0 +datum=WGS84 +units=m +no_defs +type=crs"
+    )
+
+
+def _wrap_lon(lon: float) -> float:
+    """Longitude in degrees brought into [-180, 180)."""
+    return (lon + 180.0) % 360.0 - 180.0
+
+
+def _polar_side(south: float, north: float, span: float) -> float:
+    """90 or -90 when data between `south` and `north` (degrees) call for a polar plane, else 0."""
+    north_pole, south_pole = north >= 90.0, south <= -90.0
+    if north_pole != south_pole:
+        far = 90.0 - south if north_pole else north + 90.0
+        return (90.0 if north_pole else -90.0) if far <= _POLAR_MAX_RADIUS_DEG else 0.0
+    if not north_pole and span > 180:
+        if south >= 90.0 - _LAEA_MAX_RADIUS_DEG:
+            return 90.0
+        if north <= _LAEA_MAX_RADIUS_DEG - 90.0:
+            return -90.0
+    return 0.0
 
 
 def measure_area_distortion(
@@ -209,11 +274,13 @@ def measure_area_distortion(
     if not crs.is_projected:
         return math.inf, (bounds[0] + bounds[2]) / 2, (bounds[1] + bounds[3]) / 2
     west, south, east, north = bounds
-    # Cell centres are kept a cell inside the extent (and off the poles), so no
-    # test cell straddles the antimeridian seam of a world-wide plane.
+    # Cell centres are kept a cell inside the extent and off the poles (within
+    # ±89 degrees), and moved off the antimeridian, so no test cell straddles
+    # the seam of a world-wide plane, even for an extent across it (east > 180).
     west, east = _inset(west, east, cell)
-    south, north = _inset(max(south, -89.0), min(north, 89.0), cell)
+    south, north = _inset(max(south, -_CELL_MAX_LAT), min(north, _CELL_MAX_LAT), cell)
     lons = np.linspace(west, east, grid) if east > west else np.array([west])
+    lons = _off_antimeridian(lons, cell, west, east)
     lats = np.linspace(south, north, grid) if north > south else np.array([south])
     lon_c, lat_c = (a.ravel() for a in np.meshgrid(lons, lats))
     trans = transformer(LONLAT, crs)
@@ -246,6 +313,14 @@ def measure_area_distortion(
     return worst, where[0], where[1]
 
 
+def _off_antimeridian(lons: np.ndarray, cell: float, west: float, east: float) -> np.ndarray:
+    """Move cell centres (degrees) lying within a cell of ±180 (or 180 + 360k) a cell off it, westward if still in [west, east]."""
+    seam = 180.0 + 360.0 * np.round((lons - 180.0) / 360.0)
+    near = np.abs(lons - seam) < cell
+    away = np.where(seam - cell >= west, seam - cell, seam + cell)
+    return np.where(near, away, lons)
+
+
 def _inset(low: float, high: float, margin: float) -> tuple[float, float]:
     if high - low > 2 * margin:
         return low + margin, high - margin
@@ -261,7 +336,8 @@ def resolve_plane(
     Parameters
     ----------
     bounds : (west, south, east, north)
-        The data's extent in WGS84 degrees.
+        The data's extent in WGS84 degrees (east beyond 180 for an extent across
+        the antimeridian, as :func:`lonlat_bounds` gives it).
     crs : str or pyproj.CRS, optional
         EPSG code, PROJ string or WKT given by the user.
 
@@ -346,30 +422,60 @@ def project_layers(
     different CRSs are compared in the same metres.
     """
     dense = [densify(layer.geometries, layer.crs, densify_m) for layer in layers]
-    lonlat = [_transform_all(d, transformer(layer.crs, LONLAT), layer) for d, layer in zip(dense, layers)]
-    for ll, layer in zip(lonlat, layers):
-        _warn_wide(ll, layer)
+    lonlat = [_to_lonlat(d, layer) for d, layer in zip(dense, layers)]
     if plane is None:
         plane = resolve_plane(lonlat_bounds(np.concatenate(lonlat)), crs)
     out = []
     for d, ll, layer in zip(dense, lonlat, layers):
-        planar = _transform_all(d, transformer(layer.crs, plane.crs), layer)
+        planar = _to_plane(d, ll, layer, plane.crs, densify_m)
         out.append(ProjectedLayer(layer.ids, planar, ll, plane, densify_m, layer))
     return out
 
 
-def _warn_wide(lonlat: np.ndarray, layer: Layer) -> None:
-    """Warn about features spanning more than 180° of longitude: likely antimeridian crossings."""
-    bounds = shapely.bounds(lonlat)
-    wide = np.flatnonzero(bounds[:, 2] - bounds[:, 0] > 180)
-    if wide.size:
-        names = ", ".join(layer.ids[i] for i in wide[:5])
-        warnings.warn(
-            f"{layer.source}: {wide.size} feature(s) span more than 180 degrees of longitude ({names}); "
-            "edges crossing the antimeridian are read the long way round, which areamc does not support",
-            AreamcWarning,
-            stacklevel=3,
-        )
+def _to_lonlat(dense: np.ndarray, layer: Layer) -> np.ndarray:
+    """Densified geometries in WGS84 lon/lat, in the canonical form of :mod:`areamc.globe`.
+
+    A layer in a projected CRS round a pole or across the antimeridian comes back
+    from PROJ with longitudes wrapped into ±180; :func:`areamc.globe.normalize`
+    unwraps them (and leaves other geometries as they are).
+    """
+    out = _transform_all(dense, transformer(layer.crs, LONLAT), layer)
+    for i, geom in enumerate(out):
+        out[i] = globe.normalize(geom, LONLAT, f"{layer.path}: feature {layer.ids[i]}")
+    return out
+
+
+def _to_plane(dense: np.ndarray, lonlat: np.ndarray, layer: Layer, crs: pyproj.CRS, step_m: float) -> np.ndarray:
+    """Planar copies (metres) of a layer's densified geometries, fitted to the plane's seam.
+
+    Most geometries are transformed from the layer's own CRS.  Those across the
+    antimeridian or round a pole or the globe (``lonlat`` beyond ±180, touching
+    both ±180 or a pole) need care.  In a plane torn along the antimeridian (a
+    world cylinder) they are cut at ±180 (:func:`areamc.globe.cut_at_antimeridian`),
+    the new edges along ±180 densified every `step_m` metres (meridians curve in
+    pseudo-cylindrical planes), and projected from lon/lat; in a plane without a
+    seam (LAEA) the slits their lon/lat outline leaves are closed
+    (:func:`areamc.globe.close_seams`).
+    """
+    to_plane = transformer(layer.crs, crs)
+    outline = globe.outlined(lonlat)
+    care = outline | globe.beyond_antimeridian(lonlat)
+    if not care.any():
+        return _transform_all(dense, to_plane, layer)
+    from_lonlat = transformer(LONLAT, crs)
+    _, south, _, north = shapely.total_bounds(lonlat[care])
+    torn = globe.tears_at_antimeridian(from_lonlat.transform, float(south), float(north))
+    out = np.empty(len(dense), dtype=object)
+    for i, geom in enumerate(dense):
+        label = f"{layer.path}: feature {layer.ids[i]}"
+        if care[i] and torn:
+            cut = densify(globe.cut_at_antimeridian(lonlat[i]), LONLAT, step_m)
+            out[i] = transform_geometry(cut, from_lonlat, label)
+        else:
+            out[i] = transform_geometry(geom, to_plane, label)
+            if outline[i]:
+                out[i] = globe.close_seams(out[i])
+    return out
 
 
 def _transform_all(geoms: np.ndarray, trans: pyproj.Transformer, layer: Layer) -> np.ndarray:

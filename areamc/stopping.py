@@ -63,6 +63,9 @@ __all__ = [
 
 DEFAULT_POINTS = 100_000
 DEFAULT_MAX_POINTS = 20_000_000
+#: Most points one estimate may draw unless the cap is raised on purpose: about half a minute of
+#: area sampling at 7 million points a second, and a day of work at 10^12 points is refused.
+POINT_CAP = 200_000_000
 #: The pilot stops once its half-width is within this factor of the target.
 PILOT_SLACK = 2.0
 #: Fewest points in the final batch of a precision target.
@@ -112,12 +115,15 @@ class StopRule:
         Cap on points with a precision target, pilot and final batch together.
     time_s : float or None
         Wall-clock budget in seconds per estimate; stops at the first chunk end past it.
+    point_cap : int
+        Largest `points` or `max_points` accepted (:data:`POINT_CAP`); raise it knowingly.
 
     Raises
     ------
     OptionError
         When `points` is given with a target, neither is given, or a value
-        is out of range (parameters ``points``, ``tolerance``, ``max_points``, ``time_s``).
+        is out of range (parameters ``points``, ``tolerance``, ``max_points``,
+        ``time_s``, ``point_cap``).
     """
 
     points: int | None = DEFAULT_POINTS
@@ -125,6 +131,7 @@ class StopRule:
     relative: float | None = None
     max_points: int = DEFAULT_MAX_POINTS
     time_s: float | None = None
+    point_cap: int = POINT_CAP
 
     def __post_init__(self) -> None:
         if self.points is not None and (self.absolute is not None or self.relative is not None):
@@ -135,6 +142,14 @@ class StopRule:
         _positive(self.absolute, "tolerance")
         _positive(self.relative, "tolerance")
         _positive(self.time_s, "time_s")
+        _whole(self.point_cap, "point_cap")
+        for name in ("points", "max_points"):
+            value = getattr(self, name)
+            if value is not None and value > self.point_cap:
+                raise OptionError(
+                    f"{{{name}}}: {value:,} points per estimate is over the cap of {self.point_cap:,} "
+                    f"(about {value / 7e6 / 60:,.0f} minutes per estimate at 7 million points a second); "
+                    "raise {point_cap} if you mean it", params=(name, "point_cap"))
         if self.points is None and self.absolute is None and self.relative is None:
             raise OptionError("{param}: give a number of points or a tolerance", param="points")
 

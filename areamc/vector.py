@@ -9,16 +9,19 @@ from __future__ import annotations
 
 import numbers
 import os
-import tempfile
+from contextlib import nullcontext
 
 import numpy as np
 
 import fiona
 import pyproj
 import shapely
+from fiona._err import CPLE_BaseError  # GDAL's errors as fiona raises them (not exported elsewhere)
 from fiona.crs import CRS as FionaCRS
+from fiona.errors import DataIOError, DriverError
 
 from .errors import OptionError
+from .output import OutputBatch, cannot_write
 
 __all__ = ["VECTOR_DRIVERS", "vector_driver", "write_features"]
 
@@ -67,11 +70,15 @@ def _value(v, field_type: str):
     return v
 
 
-def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, layer: str) -> None:
+def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, layer: str, *,
+                   batch: OutputBatch | None = None) -> None:
     """Write `rows` as attributes of `geometries` (shapely, in `crs`) to a GeoPackage or GeoJSON file.
 
     The file is written under a temporary name beside `path` and renamed into
-    place, so a failure leaves no partial file.
+    place (when `batch` commits, if given), so a failure leaves no partial
+    file and no SQLite journal.  A failure while writing (a full disk: GDAL
+    reports "database or disk is full" for a GeoPackage) raises an OSError
+    naming `path`.
     """
     driver = vector_driver(path)
     if driver is None:
@@ -79,19 +86,18 @@ def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, lay
     fields = list(rows[0]) if rows else []
     types = {f: _field_type([r.get(f) for r in rows]) for f in fields}
     schema = {"geometry": "Unknown", "properties": {f: types[f] for f in fields}}
-    folder = os.path.dirname(os.path.abspath(path))
     suffix = os.path.splitext(path)[1]
-    fd, tmp = tempfile.mkstemp(prefix=".areamc-", suffix=suffix, dir=folder)
-    os.close(fd)
-    os.unlink(tmp)
-    try:
-        with fiona.open(tmp, "w", driver=driver, schema=schema, crs=FionaCRS.from_wkt(crs.to_wkt()), layer=layer) as dst:
-            for geom, row in zip(geometries, rows):
-                props = {f: _value(v, types[f]) for f, v in row.items()}
-                dst.write({"geometry": shapely.geometry.mapping(geom), "properties": props})
-        os.replace(tmp, path)
-    except BaseException:
-        for leftover in (tmp, tmp + "-wal", tmp + "-shm"):
-            if os.path.exists(leftover):
-                os.unlink(leftover)
-        raise
+    with nullcontext(batch) if batch is not None else OutputBatch() as files:
+        with files.staging(path, suffix, create=False) as tmp:
+            try:
+                with fiona.open(tmp, "w", driver=driver, schema=schema, crs=FionaCRS.from_wkt(crs.to_wkt()),
+                                layer=layer) as dst:
+                    for geom, row in zip(geometries, rows):
+                        props = {f: _value(v, types[f]) for f, v in row.items()}
+                        dst.write({"geometry": shapely.geometry.mapping(geom), "properties": props})
+            except (CPLE_BaseError, DriverError, DataIOError) as err:
+                raise cannot_write(err, path) from err
+            except RuntimeError as err:  # fiona's "GDAL Error: Cannot write feature" (a full disk, for GeoJSON)
+                if not str(err).startswith("GDAL Error"):
+                    raise
+                raise cannot_write(err, path) from err

@@ -27,6 +27,7 @@ import numpy as np
 
 from .density import DensityView
 from .engine import DEFAULT_CHUNK, accumulate
+from .errors import OptionError
 from .estimate import AreaEstimate, TotalEstimate, mean_estimate
 from .intervals import wilson_interval, z_for
 from .samplers import Box, SamplerFactory, make_sampler
@@ -34,7 +35,7 @@ from .seeds import child_seed
 from .sequential import claim_decided
 from .stopping import StopRule, Stopper
 
-__all__ = ["WeightedRun", "weighted_run", "IMPORTANCE", "UNIFORM", "NONE", "TOTAL", "SHARES"]
+__all__ = ["WeightedRun", "weighted_run", "check_weighted_rule", "IMPORTANCE", "UNIFORM", "NONE", "TOTAL", "SHARES"]
 
 IMPORTANCE = "importance"
 UNIFORM = "uniform"
@@ -103,6 +104,13 @@ def _precision(method: str, scale: float, target: str, confidence: float):
 
 
 Classify = Callable[[np.ndarray, np.ndarray], np.ndarray]
+
+
+def check_weighted_rule(stop: StopRule) -> None:
+    """Refuse a fixed count below 2 points per region: a weighted total's variance needs two (parameter ``points``)."""
+    if stop.points is not None and stop.points < 2:
+        raise OptionError(f"{{param}}: a density-weighted run needs at least 2 points per region, got {stop.points}",
+                          param="points")
 
 
 def weighted_run(

@@ -205,3 +205,39 @@ def wilson_by_quadratic(k, n, z):
     c = p_hat * p_hat
     disc = math.sqrt(b * b - 4 * a * c)
     return (-b - disc) / (2 * a), (-b + disc) / (2 * a)
+
+
+# --- bad input: one line, exit status 2, no traceback, nothing written, inputs untouched ----------
+
+
+def checksums(folder) -> dict:
+    """SHA-256 of every file under `folder` (path relative to it -> hex digest), links followed."""
+    import hashlib
+    import pathlib
+
+    root = pathlib.Path(folder)
+    return {str(p.relative_to(root)): hashlib.sha256(p.read_bytes()).hexdigest()
+            for p in sorted(root.rglob("*")) if p.is_file()}
+
+
+def assert_refused(capsys, argv, match: str, folder, status: int = 2) -> str:
+    """Run ``areamc ARGV`` and check it refuses its input the way the brief asks.
+
+    One line on stderr starting ``areamc: error:`` and matching the regular
+    expression `match`; exit status `status`; nothing on stdout; no
+    traceback; and every file under `folder` (where the test made its inputs
+    and pointed any output) unchanged, with no file added or removed.
+    Returns the error line.
+    """
+    import re
+
+    before = checksums(folder)
+    rc, out, err = run_cli(capsys, [str(a) for a in argv])
+    lines = [line for line in err.splitlines() if line.startswith("areamc: error:")]
+    assert rc == status, f"exit {rc}, stderr: {err}"
+    assert out == "", out
+    assert "Traceback" not in err, err
+    assert len(lines) == 1, err
+    assert re.search(match, lines[0]), lines[0]
+    assert checksums(folder) == before, "files under the test folder changed"
+    return lines[0]

@@ -187,3 +187,36 @@ def test_accumulate__one_column_scores_and_integer_sums():
     x, _ = UniformSampler(make_seed(2), UNIT).random(5000)
     assert run.sums.dtype == np.int64 and run.sums.tolist() == [int((x < 0.5).sum())]
     assert run.sumsq.tolist() == run.sums.tolist()  # 0/1 scores: squares equal the scores
+
+
+@pytest.mark.parametrize("total", [100_003, 4096, 4095, 1])
+def test_accumulate__float_scores__same_digits_for_every_chunk_and_close_to_fsum(total):
+    """Real-valued sums depend only on the points, not on the chunk size (the brief: results for a seed
+    do not depend on --chunk), and agree with math.fsum's correctly rounded sum (Shewchuk 1997's exact
+    summation, in Python's standard library) to 1e-12 relative."""
+    import math
+
+    from areamc.stopping import StopRule, Stopper
+
+    values = np.random.default_rng(11).random((total, 2)) * np.array([1e-3, 7.0])
+
+    def draw_from_zero():
+        at = {"i": 0}
+
+        def draw(n):
+            i = at["i"]
+            at["i"] += n
+            return values[i:i + n, 0], values[i:i + n, 1]
+
+        return draw
+
+    runs = [accumulate(draw_from_zero(), lambda x, y: np.column_stack([x * y, y]),
+                       Stopper(StopRule(points=total)), chunk=chunk)
+            for chunk in (65536, 1000, 777, 4096, 13, total)]
+    first = runs[0]
+    for run in runs[1:]:
+        assert run.sums.tolist() == first.sums.tolist()
+        assert run.sumsq.tolist() == first.sumsq.tolist()
+    products = values[:, 0] * values[:, 1]
+    assert first.sums[0] == pytest.approx(math.fsum(products.tolist()), rel=1e-12)
+    assert first.sumsq[1] == pytest.approx(math.fsum((values[:, 1] ** 2).tolist()), rel=1e-12)

@@ -365,12 +365,6 @@ def test_check_output_path__same_file_spelled_differently__option_error(tmp_path
         check_output_path(str(source), ["data/in.gpkg"])
 
 
-@pytest.mark.xfail(
-    reason="check_output_path compares os.path.abspath strings, not the files themselves "
-    "(os.path.realpath / os.path.samefile), so an input reached through a symlink is not "
-    "recognised and write_text would replace the input file",
-    strict=True,
-)
 @pytest.mark.parametrize("alias", ["linked_file", "linked_folder"])
 def test_check_output_path__input_through_symlink__option_error(tmp_path, alias):
     real = tmp_path / "real"

@@ -32,6 +32,7 @@ import shapely
 from shapely.geometry import MultiPoint, Point, shape
 
 from areamc.errors import AreamcWarning, LayerError, OptionError
+from areamc.exact import geodesic_area
 from areamc.load import layer_from_geometries, read_layer
 from areamc.zones import DEFAULT_VERTICES, geodesic_circle, read_zones, zones_from_points
 
@@ -198,9 +199,22 @@ def test_geodesic_circle__the_ellipsoid_matters():
         (0.0, -89.95, 10_000.0),  # and the south pole
     ],
 )
-def test_geodesic_circle__antimeridian_and_poles_refused(lon, lat, radius_m):
-    with pytest.raises(OptionError, match="antimeridian or a pole"):
-        geodesic_circle(lon, lat, radius_m)
+def test_geodesic_circle__antimeridian_and_poles_built(lon, lat, radius_m):
+    # Once refused, now built (tests/test_globe.py checks them in depth): a valid lon/lat polygon whose
+    # geodesic area is that of the n-gon of geodesics through the vertices pyproj.Geod.fwd gives,
+    # measured here with Geod.polygon_area_perimeter (Karney 2013), rel 1e-9.
+    poly = geodesic_circle(lon, lat, radius_m)
+    assert poly.is_valid
+    n = DEFAULT_VERTICES
+    lons, lats, _ = GEOD.fwd(np.full(n, lon), np.full(n, lat), np.linspace(0, 360, n, endpoint=False), np.full(n, radius_m))
+    expected = abs(GEOD.polygon_area_perimeter(lons, lats)[0])
+    assert geodesic_area(poly) == pytest.approx(expected, rel=1e-9)
+
+
+def test_geodesic_circle__larger_than_a_hemisphere__refused():
+    # A ring cannot tell such a circle's inside from its outside (the smaller side is taken).
+    with pytest.raises(OptionError, match="larger than a hemisphere"):
+        geodesic_circle(0.0, 0.0, 10_000_000.0)
 
 
 # --- zones_from_points -------------------------------------------------------------------------

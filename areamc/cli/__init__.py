@@ -2,22 +2,55 @@
 
 Each command lives in its own module with ``add_parser(subparsers)`` and
 ``run(args) -> int``.  Every :class:`~areamc.errors.InputError` becomes one
-line on stderr and exit status 2; a traceback appears only with ``--verbose``.
+line on stderr and exit status 2, and so does an OSError (a full disk while
+writing, a file that cannot be read), naming its path; a traceback appears
+only with ``--verbose``.  SIGINT (Ctrl-C) ends a run with exit status 130 and
+SIGTERM with 143; both go through the atomic writers' clean-up, so neither
+leaves a temporary or partial file.
 """
 
 from __future__ import annotations
 
+import signal
 import sys
 import warnings
+from contextlib import contextmanager
 
 from .. import __version__
 from ..errors import AreamcError, AreamcWarning
 from . import area, coverage, inspect, integrate, overlap
-from .common import Parser, describe
+from .common import OUTPUT_PARAMS, Parser, describe, flag_names
 
 __all__ = ["main", "build_parser"]
 
 COMMANDS = (area, overlap, coverage, integrate, inspect)
+
+#: Exit statuses of a run ended by a signal: 128 + the signal number (common practice of POSIX shells).
+EXIT_SIGINT = 128 + signal.SIGINT
+EXIT_SIGTERM = 128 + signal.SIGTERM
+
+
+class Terminated(BaseException):
+    """Raised in the main thread when SIGTERM arrives, so that every ``except BaseException``
+    clean-up (the atomic writers') runs as it does for KeyboardInterrupt."""
+
+
+def _raise_terminated(signum, frame):
+    raise Terminated
+
+
+@contextmanager
+def _sigterm_raises():
+    """Within this block SIGTERM raises :class:`Terminated`; the previous handler is restored after."""
+    try:
+        previous = signal.signal(signal.SIGTERM, _raise_terminated)
+    except ValueError:  # not the main thread: leave signals alone
+        previous = None
+    try:
+        yield
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
 
 
 def build_parser() -> Parser:
@@ -50,10 +83,25 @@ def main(argv: list[str] | None = None) -> int:
             # other libraries' warnings are for developers; areamc's own always show
             warnings.filterwarnings("ignore")
             warnings.filterwarnings("always", category=AreamcWarning)
-        return _run(argv, verbose)
+        with _sigterm_raises():
+            return _run(argv, verbose)
+
+
+def _os_error_line(err: OSError, args) -> str:
+    """One line for an OSError: the option and path at fault (``--output out.csv: cannot write: ...``)."""
+    reason = err.strerror or str(err)
+    if err.filename is None:
+        return reason
+    path = str(err.filename)
+    names = flag_names(OUTPUT_PARAMS)
+    for param in OUTPUT_PARAMS:
+        if args is not None and getattr(args, param, None) == path:
+            return f"{names[param]} {path}: {reason}"
+    return f"{path}: {reason}"
 
 
 def _run(argv: list[str], verbose: bool) -> int:
+    args = None
     try:
         args = build_parser().parse_args(argv)
         args.argv = ["areamc", *argv]
@@ -65,6 +113,14 @@ def _run(argv: list[str], verbose: bool) -> int:
         return err.exit_status
     except KeyboardInterrupt:
         print("areamc: interrupted", file=sys.stderr)
-        return 130
+        return EXIT_SIGINT
+    except Terminated:
+        print("areamc: terminated", file=sys.stderr)
+        return EXIT_SIGTERM
     except BrokenPipeError:
         return 0
+    except OSError as err:
+        if verbose:
+            raise
+        print(f"areamc: error: {' '.join(_os_error_line(err, args).split())}", file=sys.stderr)
+        return 2

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from ..area import estimate_areas
 from ..load import read_layer
-from ..output import Column, render, write_text
+from ..output import Column, OutputBatch, render, write_text
 from ..project import project_layer
 from .common import (
     Screen,
@@ -14,6 +14,7 @@ from .common import (
     add_sampling_options,
     check_outputs,
     flag_line,
+    layer_options,
     positive_int,
     run_metadata,
     show,
@@ -35,6 +36,7 @@ COLUMNS = (
 )
 TRACE_COLUMNS = (
     Column("id"),
+    Column("feature_index"),
     Column("points"),
     Column("hits"),
     Column("estimate", area=True),
@@ -78,8 +80,8 @@ def add_parser(sub) -> None:
 
 def run(args) -> int:
     stop = stop_rule(args)
-    check_outputs(args, [args.file], args.trace)
-    layer = read_layer(args.file, layer=args.layer, id_field=args.id_field, input_crs=args.input_crs)
+    check_outputs(args, [args.file], trace=args.trace)
+    layer = read_layer(args.file, **layer_options(args))
     projected = project_layer(layer, crs=args.crs, densify_m=args.densify)
     total = stop.point_budget * len(projected) if not stop.adaptive else None
     bar = ProgressBar(total, args.units, args.quiet)
@@ -99,8 +101,10 @@ def run(args) -> int:
         bar.close()
     metadata = {**run_metadata(args, input=layer), **report.metadata()}
     rows = [row.to_dict() for row in report.rows]
-    if args.trace:
-        trace = [t.to_dict() for t in report.trace_rows()]
-        write_text(render(trace, TRACE_COLUMNS, fmt="csv", units=args.units, metadata={}), args.trace)
-    show(args, SCREEN, report, rows, metadata, inputs=layer, features=(layer.geometries, layer.crs, "areas"))
+    with OutputBatch() as batch:  # the trace and the results are renamed into place once both are written
+        if args.trace:
+            trace = [t.to_dict() for t in report.trace_rows()]
+            write_text(render(trace, TRACE_COLUMNS, fmt="csv", units=args.units, metadata={}), args.trace, batch=batch)
+        show(args, SCREEN, report, rows, metadata, inputs=layer, features=(layer.geometries, layer.crs, "areas"),
+             batch=batch)
     return 0

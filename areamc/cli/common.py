@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import math
+import os
 import sys
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -16,14 +17,15 @@ from ..errors import OptionError
 from ..output import FORMATS, Column, check_output_path, convert_rows, render, write_text
 from ..project import DEFAULT_DENSIFY_M
 from ..samplers import SAMPLERS
-from ..stopping import DEFAULT_MAX_POINTS, DEFAULT_POINTS, StopRule
+from ..stopping import DEFAULT_MAX_POINTS, DEFAULT_POINTS, POINT_CAP, StopRule
 from ..units import AREA_UNITS, area_factor, parse_distance
 from ..vector import vector_driver, write_features
-from ..zones import DEFAULT_VERTICES, read_zones
+from ..zones import DEFAULT_VERTICES, MAX_CIRCLE_VERTICES, read_zones
 
 __all__ = [
     "Parser",
     "add_layer_options",
+    "layer_options",
     "add_plane_options",
     "add_output_options",
     "positive_int",
@@ -52,6 +54,7 @@ FLAGS = {
     "values": "--raster-values",
     "fmt": "--format",
     "time_s": "--time-limit",
+    "encoding": "--input-encoding",
 }
 _NAMES: list[dict[str, str]] = []
 
@@ -126,19 +129,35 @@ class Parser(argparse.ArgumentParser):
 
     Sub-command parsers take positionals and options in any order
     (``areamc overlap A.gpkg --layer zones B.gpkg``), by argparse's
-    intermixed parsing.
+    intermixed parsing, and ``--`` ends the options: every argument after it
+    is a positional, even one that starts with ``-`` (``areamc area -- -n.gpkg``).
     """
 
     _intermixing = False
+    _after_dashes: list[str] | None = None
+    _passes = 0
 
     def parse_known_args(self, args=None, namespace=None):
-        if self._intermixing or self._subparsers is not None:
+        if self._subparsers is not None:
             return super().parse_known_args(args, namespace)
-        self._intermixing = True
+        if self._intermixing:
+            # One of the two passes of argparse's intermixed parsing: options first, then positionals.
+            # argparse loses a "--" between the passes, so what followed it is handed to the
+            # positionals pass here, still behind a "--".
+            self._passes += 1
+            if self._passes == 2 and self._after_dashes is not None:
+                args = [*args, "--", *self._after_dashes]
+            return super().parse_known_args(args, namespace)
+        args = list(sys.argv[1:] if args is None else args)
+        after = None
+        if "--" in args:
+            cut = args.index("--")
+            args, after = args[:cut], args[cut + 1:]
+        self._intermixing, self._after_dashes, self._passes = True, after, 0
         try:
             return super().parse_known_intermixed_args(args, namespace)
         finally:
-            self._intermixing = False
+            self._intermixing, self._after_dashes = False, None
 
     def error(self, message: str):  # noqa: D401 - argparse API
         command = self.prog.removeprefix("areamc").strip()
@@ -248,6 +267,9 @@ def add_sampling_options(parser: argparse.ArgumentParser, tolerance: str = "area
                         f"--tolerance run stops only at chunk ends (default {DEFAULT_CHUNK})")
     parser.add_argument("--sampler", choices=sorted(SAMPLERS), default="uniform",
                         help="how points are drawn (default uniform)")
+    parser.add_argument("--point-cap", type=positive_int, default=POINT_CAP, metavar="N",
+                        help=f"refuse --points or --max-points above N per estimate (default {POINT_CAP:,}); "
+                        "raise it knowingly for very long runs")
     parser.add_argument("--time-limit", type=positive_float, metavar="SECONDS",
                         help="stop each estimate at the first chunk end past this many seconds "
                         "(the result then depends on the machine's speed, not only on the seed)")
@@ -261,19 +283,43 @@ def stop_rule(args, *, scale: float | None = None, below: float | None = None) -
     ``below=1`` for shares.
     """
     if args.tolerance is None:
-        return StopRule(points=args.points or DEFAULT_POINTS, max_points=args.max_points, time_s=args.time_limit)
+        return StopRule(points=args.points or DEFAULT_POINTS, max_points=args.max_points, time_s=args.time_limit,
+                        point_cap=args.point_cap)
     if args.points is not None:
         raise OptionError("--points and --tolerance exclude each other; give one")
     absolute, relative = parse_tolerance(args.tolerance, area_factor(args.units) if scale is None else scale, below)
     return StopRule(points=None, absolute=absolute, relative=relative, max_points=args.max_points,
-                    time_s=args.time_limit)
+                    time_s=args.time_limit, point_cap=args.point_cap)
 
 
 def add_layer_options(parser: argparse.ArgumentParser, *, prefix: str = "", what: str = "the input file") -> None:
-    """``--layer``, ``--id-field`` and ``--input-crs`` for one input file."""
-    parser.add_argument(f"--{prefix}layer", metavar="NAME", help=f"layer of {what}, for files with several layers (default: the first)")
+    """``--layer``, ``--id-field``, ``--input-crs`` and ``--input-encoding`` for one input file.
+
+    Without a `prefix` (the command's first input), also ``--allow-duplicate-ids``,
+    which applies to every input of the command.
+    """
+    parser.add_argument(f"--{prefix}layer", metavar="NAME",
+                        help=f"layer of {what}, for files with several layers (default: the first, with a notice)")
     parser.add_argument(f"--{prefix}id-field", metavar="FIELD", help="attribute that labels features (default: the feature id)")
     parser.add_argument(f"--{prefix}input-crs", metavar="CRS", help="CRS to assume when the file declares none (EPSG code, PROJ string or WKT)")
+    parser.add_argument(f"--{prefix}input-encoding", metavar="NAME",
+                        help=f"text encoding of the attributes of {what}, such as latin-1, when the file declares "
+                        "a wrong one (default: the file's own, e.g. a Shapefile's .cpg)")
+    if not prefix:
+        parser.add_argument("--allow-duplicate-ids", action="store_true",
+                            help="accept features that share an id (refused by default); rows then tell them "
+                            "apart by feature_index, their position in the layer")
+
+
+def layer_options(args, prefix: str = "") -> dict:
+    """The :func:`~areamc.load.read_layer` keywords given by the layer options of `prefix` (``""``, ``"zones_"``)."""
+    return {
+        "layer": getattr(args, f"{prefix}layer"),
+        "id_field": getattr(args, f"{prefix}id_field"),
+        "input_crs": getattr(args, f"{prefix}input_crs"),
+        "encoding": getattr(args, f"{prefix}input_encoding"),
+        "allow_duplicate_ids": getattr(args, "allow_duplicate_ids", False),
+    }
 
 
 def add_plane_options(parser: argparse.ArgumentParser) -> None:
@@ -325,47 +371,91 @@ def add_zone_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--radius-field", metavar="FIELD", help="attribute with each facility point's reach in metres")
     parser.add_argument("--circle-vertices", type=positive_int, default=DEFAULT_VERTICES, metavar="N",
                         help=f"vertices of each geodesic circle (default {DEFAULT_VERTICES})")
+    parser.add_argument("--vertex-cap", type=positive_int, default=MAX_CIRCLE_VERTICES, metavar="N",
+                        help=f"refuse --circle-vertices above N (default {MAX_CIRCLE_VERTICES:,}); raise it knowingly")
 
 
-def zone_layer(args, path: str, layer: str | None, id_field: str | None, input_crs: str | None):
+def zone_layer(args, path: str, layer: str | None, id_field: str | None, input_crs: str | None,
+               encoding: str | None = None):
     """Read a zone layer with the zone options of `args` (points become geodesic circles)."""
     radius = parse_distance(args.radius) if args.radius is not None else None
     return read_zones(path, layer=layer, id_field=id_field, input_crs=input_crs, radius_m=radius,
-                      radius_field=args.radius_field, vertices=args.circle_vertices)
+                      radius_field=args.radius_field, vertices=args.circle_vertices, vertex_cap=args.vertex_cap,
+                      encoding=encoding,
+                      allow_duplicate_ids=getattr(args, "allow_duplicate_ids", False))
 
 
-def show(args, screen: Screen, report, rows, metadata, *, inputs=None, features=None, columns=None) -> None:
+def show(args, screen: Screen, report, rows, metadata, *, inputs=None, features=None, columns=None,
+         batch=None) -> None:
     """Render a report through its command's :class:`Screen` and write it (see :func:`emit`)."""
     header = screen.header(args, report, inputs)
     footer = screen.footer(args, report, rows)
-    emit(args, rows, columns or screen.columns, metadata, header, footer, features=features, fields=screen.fields)
+    columns = with_feature_index(args, columns or screen.columns)
+    emit(args, rows, columns, metadata, header, footer, features=features, fields=screen.fields,
+         batch=batch)
 
 
-def emit(args, rows, columns, metadata, header=(), footer=(), features=None, fields=None) -> None:
+def with_feature_index(args, columns):
+    """With ``--allow-duplicate-ids``, the table also shows each row's feature position, after its id column(s)."""
+    if not getattr(args, "allow_duplicate_ids", False):
+        return columns
+    out, last_id = list(columns), None
+    for n, column in enumerate(out):
+        if column.field in ("id", "id_a", "id_b"):
+            last_id = n
+    if last_id is None:
+        return columns
+    extra = [Column("feature_index", "index")] if out[last_id].field == "id" else [
+        Column("feature_index_a", "index_a"), Column("feature_index_b", "index_b")]
+    return tuple(out[:last_id + 1] + extra + out[last_id + 1:])
+
+
+def emit(args, rows, columns, metadata, header=(), footer=(), features=None, fields=None, batch=None) -> None:
     """Render rows per the output options and write them to ``--output`` or stdout.
 
     `columns` are the table's; `fields` (default `columns`) name every area or
     per-area field, for unit conversion in CSV, JSON and feature output.
     `features` is ``(geometries, crs, layer_name)`` for a GeoPackage/GeoJSON ``--output``.
+    With `batch` (an :class:`~areamc.output.OutputBatch`), the file is renamed into place
+    together with the batch's other files.
     """
     fields = columns if fields is None else fields
     if vector_driver(args.output):
         if features is None:
             raise OptionError(f"--output {args.output}: this command writes no features; use .csv or .json")
         geoms, crs, layer = features
-        write_features(args.output, geoms, convert_rows(rows, fields, args.units), crs, layer)
+        write_features(args.output, geoms, convert_rows(rows, fields, args.units), crs, layer, batch=batch)
         return
     if output_format(args) != "table":
         columns = fields
     text = render(rows, columns, fmt=output_format(args), units=args.units, metadata=metadata, header=header, footer=footer)
     if args.output:
-        write_text(text, args.output)
+        write_text(text, args.output, batch=batch)
     else:
         sys.stdout.write(text)
 
 
-def check_outputs(args, inputs, *extra: str | None) -> None:
-    """Check ``--output`` and any other output paths before doing any work."""
-    check_output_path(args.output, inputs)
-    for path in extra:
-        check_output_path(path, inputs)
+#: The options that name output files, by parameter (``--output``, ``--trace``).
+OUTPUT_PARAMS = ("output", "trace")
+
+
+def check_outputs(args, inputs, **others: str | None) -> None:
+    """Check ``--output`` and the other output paths (``trace=args.trace``) before doing any work.
+
+    Each must be a writable file in an existing, writable folder; none may be one of `inputs`
+    (every input file the command reads, None entries skipped) or an input's sidecar, by real
+    path; and no two outputs may share a path (see :func:`~areamc.output.check_output_path`).
+    """
+    seen: dict[str, str] = {}
+    for param, path in {"output": args.output, **others}.items():
+        check_output_path(path, inputs, param=param, outputs=seen)
+        if path:
+            seen[param] = path
+
+
+def density_file(args) -> str | None:
+    """``--density`` when it names a file (blocks or a raster), else None (an expression or no density)."""
+    text = getattr(args, "density", None)
+    if not text or getattr(args, "density_kind", "auto") == "expression" or not os.path.exists(text):
+        return None
+    return text

@@ -20,8 +20,10 @@ from .common import (
     add_sampling_options,
     add_zone_options,
     check_outputs,
+    density_file,
     flag_line,
     flags,
+    layer_options,
     positive_float,
     run_metadata,
     show,
@@ -60,6 +62,10 @@ ALL_FIELDS = COLUMNS + (
 )  # with the table's columns: every field that holds an area, for unit conversion
 
 
+#: Exit status of ``--fail-on-shortfall`` when no row falls short but some verdict is undecided.
+EXIT_UNDECIDED = 3
+
+
 def _claim(text: str) -> float:
     try:
         return check_claim(float(text))
@@ -80,7 +86,9 @@ def add_parser(sub) -> None:
                    help="report the share covered by at least K zones; repeat for several (default 1)")
     p.add_argument("--claim", type=_claim, metavar="SHARE",
                    help="check the claim that each share is at least SHARE, in (0, 1]")
-    p.add_argument("--fail-on-shortfall", action="store_true", help="exit status 1 when any region falls short of --claim")
+    p.add_argument("--fail-on-shortfall", action="store_true",
+                   help=f"exit status 1 when any row falls short of --claim, or {EXIT_UNDECIDED} when none falls short but "
+                   "some verdict is still undecided when the points run out (raise --max-points or --points)")
     add_density_options(p, required=False)
     p.add_argument("--no-exact", action="store_true", help="skip shapely's exact shares")
     p.add_argument("--exact-budget", type=positive_float, default=10.0, metavar="SECONDS",
@@ -134,10 +142,12 @@ def run(args) -> int:
     if args.fail_on_shortfall and args.claim is None:
         raise OptionError("--fail-on-shortfall needs --claim")
     stop = stop_rule(args, scale=1.0, below=1.0)  # an absolute tolerance is a share
-    check_outputs(args, [args.regions, args.zones])
-    regions = read_layer(args.regions, layer=args.layer, id_field=args.id_field, input_crs=args.input_crs)
-    with flags(layer="--zones-layer", id_field="--zones-id-field", input_crs="--zones-input-crs"):
-        zones = zone_layer(args, args.zones, args.zones_layer, args.zones_id_field, args.zones_input_crs)
+    check_outputs(args, [args.regions, args.zones, density_file(args)])
+    regions = read_layer(args.regions, **layer_options(args))
+    with flags(layer="--zones-layer", id_field="--zones-id-field", input_crs="--zones-input-crs",
+               encoding="--zones-input-encoding"):
+        zones = zone_layer(args, args.zones, args.zones_layer, args.zones_id_field, args.zones_input_crs,
+                           encoding=args.zones_input_encoding)
     spec = read_density_option(args)
     layers = [regions, zones] + ([spec.blocks] if spec is not None and spec.blocks is not None else [])
     projected = project_layers(layers, crs=args.crs, densify_m=args.densify)
@@ -178,4 +188,9 @@ def run(args) -> int:
     geoms = [g for g in regions.geometries for _ in report.ks] if args.output else None  # rows: region by region, k by k
     show(args, SCREEN, report, rows, metadata, inputs=(regions, zones, spec), columns=columns,
          features=(geoms, regions.crs, "coverage"))
-    return 1 if args.fail_on_shortfall and report.shortfall else 0
+    if args.fail_on_shortfall:
+        if report.shortfall:
+            return 1
+        if report.undecided:
+            return EXIT_UNDECIDED
+    return 0

@@ -9,7 +9,15 @@ from ..errors import OptionError
 from ..load import read_layer
 from ..output import Column, render, render_fields, write_text
 from ..vector import vector_driver
-from .common import add_layer_options, add_output_options, add_plane_options, check_outputs, output_format, run_metadata
+from .common import (
+    add_layer_options,
+    add_output_options,
+    add_plane_options,
+    check_outputs,
+    layer_options,
+    output_format,
+    run_metadata,
+)
 
 LABELS = {
     "path": "file",
@@ -45,7 +53,7 @@ def run(args) -> int:
     if vector_driver(args.output):
         raise OptionError(f"--output {args.output}: inspect writes text; use .csv, .json or a text file")
     check_outputs(args, [args.file])
-    layer = read_layer(args.file, layer=args.layer, id_field=args.id_field, input_crs=args.input_crs, kind="any")
+    layer = read_layer(args.file, **layer_options(args), kind="any")
     info = describe_layer(layer, crs=args.crs, densify_m=args.densify).to_dict()
     fmt = output_format(args)
     if fmt == "table":

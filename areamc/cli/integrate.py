@@ -14,7 +14,9 @@ from .common import (
     add_plane_options,
     add_sampling_options,
     check_outputs,
+    density_file,
     flag_line,
+    layer_options,
     run_metadata,
     show,
     stop_rule,
@@ -73,8 +75,8 @@ SCREEN = Screen(COLUMNS, ALL_FIELDS, _header, _footer)
 
 def run(args) -> int:
     stop = stop_rule(args, scale=1.0)  # an absolute tolerance is a count (e.g. persons)
-    check_outputs(args, [args.regions, args.density])
-    regions = read_layer(args.regions, layer=args.layer, id_field=args.id_field, input_crs=args.input_crs)
+    check_outputs(args, [args.regions, density_file(args)])
+    regions = read_layer(args.regions, **layer_options(args))
     spec = read_density_option(args)
     layers = [regions] + ([spec.blocks] if spec.blocks is not None else [])
     projected = project_layers(layers, crs=args.crs, densify_m=args.densify)

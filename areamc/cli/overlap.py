@@ -102,10 +102,12 @@ def run(args) -> int:
     stop = stop_rule(args)
     inputs = [args.zones] + ([args.other] if args.other else [])
     check_outputs(args, inputs)
-    layers = [zone_layer(args, args.zones, args.layer, args.id_field, args.input_crs)]
+    layers = [zone_layer(args, args.zones, args.layer, args.id_field, args.input_crs, encoding=args.input_encoding)]
     if args.other:
-        with flags(layer="--other-layer", id_field="--other-id-field", input_crs="--other-input-crs"):
-            layers.append(zone_layer(args, args.other, args.other_layer, args.other_id_field, args.other_input_crs))
+        with flags(layer="--other-layer", id_field="--other-id-field", input_crs="--other-input-crs",
+                   encoding="--other-input-encoding"):
+            layers.append(zone_layer(args, args.other, args.other_layer, args.other_id_field, args.other_input_crs,
+                                     encoding=args.other_input_encoding))
     projected = project_layers(layers, crs=args.crs, densify_m=args.densify)
     report = estimate_overlaps(
         projected[0],
