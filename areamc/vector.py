@@ -16,7 +16,10 @@ import numpy as np
 import fiona
 import pyproj
 import shapely
-from fiona._err import CPLE_BaseError  # GDAL's errors as fiona raises them (not exported elsewhere)
+try:  # GDAL's errors as fiona raises them; not exported elsewhere, so guard against a fiona that moves it
+    from fiona._err import CPLE_BaseError
+except ImportError:  # pragma: no cover - an older or newer fiona
+    from fiona.errors import FionaError as CPLE_BaseError
 from fiona.crs import CRS as FionaCRS
 from fiona.errors import DataIOError, DriverError
 
