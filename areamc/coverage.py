@@ -34,7 +34,18 @@ from .samplers import Box, SamplerFactory, make_sampler, sampler_name
 from .seeds import child_seed, job_root, make_seed
 from .sequential import FALLS_SHORT, UNDECIDED, check_claim, claim_decided, confidence_sequence, verdict
 from .stopping import StopRule, Stopper
-from .weighted import IMPORTANCE, NONE, SHARES, WeightedRun, check_weighted_rule, weighted_run
+from .weighted import (
+    IMPORTANCE,
+    MIN_EFFECTIVE_POINTS,
+    NONE,
+    SHARES,
+    UNIFORM,
+    WeightedRun,
+    check_weighted_rule,
+    concentration_warning,
+    effective_points,
+    weighted_run,
+)
 
 __all__ = ["CoverageRow", "PopulationShare", "CoverageReport", "estimate_coverage"]
 
@@ -71,6 +82,10 @@ class PopulationShare:
         Exact covered share at k = 1 (areal weighting or cell fractions).
     verdict : str or None
         Claim verdict on the population share (importance sampling only).
+    effective_points : float
+        Kish's effective number of points of the population run
+        (:attr:`~areamc.weighted.WeightedRun.effective_points`); a warning
+        names regions below :data:`~areamc.weighted.MIN_EFFECTIVE_POINTS`.
     """
 
     total: float
@@ -83,6 +98,7 @@ class PopulationShare:
     method: str
     exact_share: float | None
     verdict: str | None
+    effective_points: float = 0.0
 
     def to_dict(self) -> dict:
         """Fields under the names rows carry them (``population_share``, ...)."""
@@ -97,6 +113,7 @@ class PopulationShare:
             "population_method": self.method,
             "exact_population_share": self.exact_share,
             "population_verdict": self.verdict,
+            "population_effective_points": self.effective_points,
         }
 
 
@@ -290,6 +307,7 @@ def estimate_coverage(
     rows: list[CoverageRow] = []
     status: dict = {}
     views = []
+    concentrated: list[tuple[str, float, int]] = []
     decided = claim_decided(claim, confidence) if claim is not None else None
     for r, (rid, region) in enumerate(zip(regions.ids, regions.planar)):
         near = zones.planar[np.sort(tree.query(region, predicate="intersects"))]
@@ -306,8 +324,10 @@ def estimate_coverage(
         if density is not None:
             view = density.for_region(region)
             views.append(view)
-            people = _population(view, near, classify, child_seed(streams, r, _POPULATION_STREAM), stop, claim,
-                                 confidence, sampler, chunk, importance, exact)
+            people, weighted, effective = _population(view, near, classify, child_seed(streams, r, _POPULATION_STREAM),
+                                                      stop, claim, confidence, sampler, chunk, importance, exact)
+            if weighted is not None and weighted.method == UNIFORM and effective < MIN_EFFECTIVE_POINTS:
+                concentrated.append((rid, effective, weighted.points))
         n_in = run.hits[0]
         for c, k in enumerate(ks):
             rows.append(_row(rid, regions.source.indices[r], k, run.hits[c + 1], n_in, float(region_areas[r]),
@@ -315,6 +335,7 @@ def estimate_coverage(
                              None if people is None else people(c + 1, k)))
     if density is not None:
         warn_nodata(density, views)
+        concentration_warning("coverage", concentrated)
     info = RunInfo("coverage", regions.plane, confidence, int(root.entropy), sampler_name(sampler), stop,
                    regions.densify_m)
     return CoverageReport(tuple(rows), info, ks, claim, status)
@@ -358,7 +379,7 @@ def _row(rid, index, k, hits, n, region_area, exact_share, claim, confidence, ru
 
 
 def _population(view: DensityView, near, classify, seed, stop, claim, confidence, sampler, chunk, importance, exact):
-    """Run the density-weighted sample of one region; return a function giving each k's population part."""
+    """Run the density-weighted sample of one region; return a function giving each k's population part, and the run."""
     run = weighted_run(view, classify, seed, stop=stop, confidence=confidence, target=SHARES, claim=claim,
                        sampler=sampler, chunk=chunk, importance=importance)
     truth = view.exact_total() if exact else None
@@ -366,15 +387,18 @@ def _population(view: DensityView, near, classify, seed, stop, claim, confidence
     if truth:  # sources with an exact total (blocks, rasters) give the exact covered share at k = 1
         covered_truth = view.exact_total(shapely.union_all(near)) / truth if len(near) else 0.0
 
+    effective = effective_points(run, view, truth) if run is not None else 0.0
+
     def part(column: int, k: int) -> PopulationShare:
         if run is None:
             return PopulationShare(0.0 if truth is None else truth, 0.0, None, None, None, None, 0, NONE, None, None)
-        return _population_share(run, column, k, truth, covered_truth, claim, confidence)
+        return _population_share(run, column, k, truth, covered_truth, claim, confidence, effective)
 
-    return part
+    return part, run, effective
 
 
-def _population_share(run: WeightedRun, column, k, truth, covered_truth, claim, confidence) -> PopulationShare:
+def _population_share(run: WeightedRun, column, k, truth, covered_truth, claim, confidence,
+                      effective) -> PopulationShare:
     total = truth if truth is not None else run.total(confidence).estimate
     share, se, low, high = run.share(column, confidence)
     decides = claim is not None and run.method == IMPORTANCE
@@ -391,4 +415,5 @@ def _population_share(run: WeightedRun, column, k, truth, covered_truth, claim, 
         method=run.method,
         exact_share=covered_truth if k == 1 else None,
         verdict=verdict(int(run.sums[column]), int(run.sums[0]), claim, confidence) if decides else None,
+        effective_points=effective,
     )

@@ -119,6 +119,10 @@ class DensityView(Protocol):
         """Exact integral of the density over the region (∩ `clip`), or None."""
         ...
 
+    def exact_square_total(self) -> float | None:
+        """Exact integral of the squared density over the region (count² per m²), or None."""
+        ...
+
     def proposal(self) -> Proposal | None:
         """An importance sampler for the region, or None when the source cannot offer one there."""
         ...
@@ -257,6 +261,11 @@ class BlockView(_PointwiseView):
         geom = self.region if clip is None else shapely.intersection(self.region, clip)
         near = self.source.near(geom)
         return block_total(self.source.blocks.planar[near], self.source.rates[near], geom)
+
+    def exact_square_total(self) -> float:
+        """∫_R d² dA = Σ rate_i² |block_i ∩ R| (count² per m²), for the spread of uniform sampling."""
+        near = self.source.near(self.region)
+        return block_total(self.source.blocks.planar[near], self.source.rates[near] ** 2, self.region)
 
     def proposal(self) -> Proposal:
         """Draw a block by its count, then a point uniform in it (by its triangles)."""
@@ -485,6 +494,12 @@ class RasterView:
         geom = self.region if clip is None else shapely.intersection(self.region, clip)
         return cell_total(self.cells, self.counts.ravel(), geom)
 
+    def exact_square_total(self) -> float:
+        """∫_R d² dA = Σ count x rate x share of the cell inside R (count² per m²)."""
+        if self.transform is None:
+            return 0.0
+        return cell_total(self.cells, (self.counts * self.rates).ravel(), self.region)
+
     def _importance_ok(self) -> bool:
         if self.source.geographic:
             return True
@@ -584,6 +599,9 @@ class ExpressionView(_PointwiseView):
     """:class:`ExpressionDensity` for one region: no exact total and no importance sampler."""
 
     def exact_total(self, clip=None) -> None:
+        return None
+
+    def exact_square_total(self) -> None:
         return None
 
     def proposal(self) -> None:

@@ -26,7 +26,16 @@ from .runinfo import RunInfo
 from .samplers import SamplerFactory, sampler_name
 from .seeds import child_seed, job_root, make_seed
 from .stopping import StopRule
-from .weighted import NONE, TOTAL, check_weighted_rule, weighted_run
+from .weighted import (
+    MIN_EFFECTIVE_POINTS,
+    NONE,
+    TOTAL,
+    UNIFORM,
+    check_weighted_rule,
+    concentration_warning,
+    effective_points,
+    weighted_run,
+)
 
 __all__ = ["IntegrateRow", "IntegrateReport", "integrate_density"]
 
@@ -58,6 +67,9 @@ class IntegrateRow:
     stop_reason : str
         Why sampling stopped ("budget", "target", "time"), or "none" when nothing was sampled.
     pilot_points : int
+    effective_points : float
+        Kish's effective number of points of the run (:attr:`~areamc.weighted.WeightedRun.effective_points`);
+        below :data:`~areamc.weighted.MIN_EFFECTIVE_POINTS` the interval is not to be trusted (a warning says so).
     """
 
     id: str
@@ -75,6 +87,7 @@ class IntegrateRow:
     flagged: bool
     stop_reason: str
     pilot_points: int
+    effective_points: float = 0.0
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -137,6 +150,7 @@ def integrate_density(
     areas = planar_area(regions.planar)
     rows = []
     views = []
+    concentrated: list[tuple[str, float, int]] = []
     for r, (rid, region) in enumerate(zip(regions.ids, regions.planar)):
         view = source.for_region(region)
         views.append(view)
@@ -159,16 +173,20 @@ def integrate_density(
             continue
         est = run.total(confidence)
         z = est.deviation(truth) if truth is not None else None
+        effective = effective_points(run, view, truth)
         rows.append(
             IntegrateRow(
                 id=rid, feature_index=regions.source.indices[r], estimate=est.estimate, stderr=est.stderr,
                 ci_low=est.ci_low, ci_high=est.ci_high,
                 mean_density=float(est.estimate / areas[r]) if areas[r] > 0 else math.nan, region_area=float(areas[r]),
                 points=run.points, method=run.method, exact=truth, z=z, flagged=flagged(z),
-                stop_reason=run.reason, pilot_points=run.pilot_points,
+                stop_reason=run.reason, pilot_points=run.pilot_points, effective_points=effective,
             )
         )
+        if run.method == UNIFORM and effective < MIN_EFFECTIVE_POINTS:
+            concentrated.append((rid, effective, run.points))
     warn_nodata(source, views)
+    concentration_warning("integrate", concentrated)
     info = RunInfo("integrate", regions.plane, confidence, int(root.entropy), sampler_name(sampler), stop,
                    regions.densify_m)
     return IntegrateReport(tuple(rows), info, source.label)

@@ -15,11 +15,25 @@ Two estimators, chosen per region:
   share is the ratio ``Σa / Σb`` with the delta-method variance
   ``(Σa² (1 − 2R) + R² Σb²) / (Σb)²`` (using ``Σab = Σa²`` since the
   covered indicator is 0 or 1; Cochran 1977, *Sampling Techniques*, §6.4).
+
+The uniform estimators' normal intervals rest on the central limit theorem,
+which fails when a few points carry most of the weight (a town holding half a
+district's people in a few km²).  Each run reports its **effective number of
+points**, Kish's (1965, *Survey Sampling*) ``n_eff = (Σb)² / Σb²``: for a
+constant density it is the number of points in the region, and it falls
+towards the number of points that land where the weight sits as the weight
+concentrates.  A sample that missed the concentration entirely cannot show
+it, so where the source knows its density exactly (blocks, rasters) the jobs
+use the expected value instead, ``n T² / (|B| ∫_R d²)`` with ``T = ∫_R d``
+(:func:`expected_effective_points`).  Below :data:`MIN_EFFECTIVE_POINTS` the
+jobs warn that the interval cannot be trusted.  Importance sampling draws in
+proportion to the weight, so its points are all effective.
 """
 
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass
 from typing import Callable
 
@@ -27,7 +41,7 @@ import numpy as np
 
 from .density import DensityView
 from .engine import DEFAULT_CHUNK, accumulate
-from .errors import OptionError
+from .errors import AreamcWarning, OptionError
 from .estimate import AreaEstimate, TotalEstimate, mean_estimate
 from .intervals import wilson_interval, z_for
 from .samplers import Box, SamplerFactory, make_sampler
@@ -35,12 +49,28 @@ from .seeds import child_seed
 from .sequential import claim_decided
 from .stopping import StopRule, Stopper
 
-__all__ = ["WeightedRun", "weighted_run", "check_weighted_rule", "IMPORTANCE", "UNIFORM", "NONE", "TOTAL", "SHARES"]
+__all__ = [
+    "WeightedRun",
+    "weighted_run",
+    "check_weighted_rule",
+    "concentration_warning",
+    "expected_effective_points",
+    "effective_points",
+    "IMPORTANCE",
+    "UNIFORM",
+    "NONE",
+    "TOTAL",
+    "SHARES",
+    "MIN_EFFECTIVE_POINTS",
+]
 
 IMPORTANCE = "importance"
 UNIFORM = "uniform"
 #: Method of a region with no density near it.
 NONE = "none"
+#: Fewest effective points (Kish 1965) for which a uniform run's normal interval is trusted without a warning:
+#: about the number of points that must land where most of the weight sits.
+MIN_EFFECTIVE_POINTS = 100
 #: What a precision target applies to: the total (column 0), or the shares (columns 1..).
 TOTAL = "total"
 SHARES = "shares"
@@ -69,6 +99,18 @@ class WeightedRun:
         if self.method == IMPORTANCE:
             return AreaEstimate.from_counts(int(self.sums[0]), self.points, self.scale, confidence)
         return mean_estimate(float(self.sums[0]), float(self.sumsq[0]), self.points, self.scale, confidence)
+
+    @property
+    def effective_points(self) -> float:
+        """Kish's effective number of points ``(Σb)² / Σb²`` of the in-region weights (uniform runs).
+
+        For importance runs every point is drawn in proportion to the weight,
+        so the in-region hit count is returned.  0 when no weight was met.
+        """
+        if self.method == IMPORTANCE:
+            return float(self.sums[0])
+        total, square = float(self.sums[0]), float(self.sumsq[0])
+        return total * total / square if square > 0 else 0.0
 
     def share(self, column: int, confidence: float) -> tuple[float, float, float, float]:
         """(share, stderr, low, high) of the region's weight falling in a covered set."""
@@ -104,6 +146,44 @@ def _precision(method: str, scale: float, target: str, confidence: float):
 
 
 Classify = Callable[[np.ndarray, np.ndarray], np.ndarray]
+
+
+def expected_effective_points(points: int, box_area: float, total: float, square_total: float) -> float:
+    """Expected Kish effective points of `points` uniform points in a box of `box_area` m².
+
+    For scores ``b = d 1_R``: ``n (E b)² / E b² = n T² / (|B| S)`` with
+    ``T = ∫_R d`` and ``S = ∫_R d²`` (counts and count² per m²).
+    """
+    if not square_total > 0 or not box_area > 0:
+        return float(points)
+    return float(points) * total * total / (box_area * square_total)
+
+
+def effective_points(run: "WeightedRun", view: DensityView, total: float | None) -> float:
+    """A run's effective points: expected from the exact moments where the view knows them, else the sample's.
+
+    `total` is the region's exact total (None when not computed).
+    """
+    if run.method == UNIFORM and total is not None:
+        square = view.exact_square_total()
+        if square is not None:
+            return expected_effective_points(run.points, run.scale, total, square)
+    return run.effective_points
+
+
+def concentration_warning(job: str, concentrated: list[tuple[str, float, int]]) -> None:
+    """Warn once about regions whose uniform run had fewer than :data:`MIN_EFFECTIVE_POINTS` effective points.
+
+    `concentrated` holds (region id, effective points, points) for each such region.
+    """
+    if not concentrated:
+        return
+    shown = "; ".join(f"{rid}: {eff:,.0f} effective of {n:,} points" for rid, eff, n in concentrated[:3])
+    more = f"; and {len(concentrated) - 3} more" if len(concentrated) > 3 else ""
+    warnings.warn(AreamcWarning(
+        f"{job}: the density's weight is too concentrated for the normal interval to be trusted in "
+        f"{len(concentrated)} region(s) ({shown}{more}; fewer than {MIN_EFFECTIVE_POINTS:,} effective points, "
+        "Kish 1965); sample by importance (blocks, rasters), or raise {points}", param="points"), stacklevel=3)
 
 
 def check_weighted_rule(stop: StopRule) -> None:

@@ -224,3 +224,68 @@ def test_weighted_run__raster_without_importance_sampler_still_counts_its_densit
     assert run is not None and run.method == UNIFORM
     total = run.total(0.95)
     assert abs(total.estimate - 1e-4 * geom.area) <= 4 * total.stderr + 1e-9 * geom.area
+
+
+# --- concentrated densities: effective points (Kish 1965) ----------------------------------------
+
+
+def _town_scene():
+    """A 60 km x 60 km district (EPSG:6933 metres) whose people are mostly in a 2 km x 2 km town:
+    300,000 of 555,300 persons, the rest spread evenly (the scene of the speed issue's measurement)."""
+    from shapely.geometry import box
+
+    district = box(0, 0, 60_000, 60_000)
+    town = box(10_000, 10_000, 12_000, 12_000)
+    rest = shapely.difference(district, town)
+    layers = [layer_from_geometries([district], "EPSG:6933", ids=["D"]),
+              layer_from_geometries([town, rest], "EPSG:6933", ids=["town", "rest"])]
+    regions, blocks = project_layers(layers, crs="EPSG:6933")
+    return regions, BlockDensity(blocks, np.array([300_000.0, 255_300.0]))
+
+
+def test_effective_points__expected_value__kish_formula_by_hand():
+    """n T² / (|B| ∫ d²) for the town scene, computed here by hand from the two blocks' densities."""
+    from areamc.weighted import expected_effective_points
+
+    regions, source = _town_scene()
+    view = source.for_region(regions.planar[0])
+    d_town, d_rest = 300_000 / 2_000**2, 255_300 / (60_000**2 - 2_000**2)
+    square = d_town**2 * 2_000**2 + d_rest**2 * (60_000**2 - 2_000**2)
+    assert view.exact_square_total() == pytest.approx(square, rel=1e-12)
+    expected = expected_effective_points(20_000, 60_000.0**2, 555_300.0, view.exact_square_total())
+    assert expected == pytest.approx(20_000 * 555_300.0**2 / (60_000.0**2 * square), rel=1e-12)
+    # the town (1/900 of the box) carries nearly all of ∫d², so n_eff ≈ (n / 900) (T / town's count)²: the
+    # points expected in the town, scaled by how much of the total it holds
+    assert expected == pytest.approx(20_000 / 900 * (555_300 / 300_000) ** 2, rel=0.01)
+
+
+def test_effective_points__sample_value_converges_to_the_expected_one():
+    """Kish's (Σb)²/Σb² from a large uniform sample tends to n (E b)² / E b² (law of large numbers)."""
+    from areamc.weighted import expected_effective_points
+
+    regions, source = _town_scene()
+    region = regions.planar[0]
+    view = source.for_region(region)
+    run = weighted_run(view, lambda x, y: shapely.contains_xy(region, x, y)[:, None], make_seed(8),
+                       stop=StopRule(points=400_000), confidence=0.95, importance=False)
+    expected = expected_effective_points(run.points, run.scale, 555_300.0, view.exact_square_total())
+    assert run.method == UNIFORM
+    assert run.effective_points == pytest.approx(expected, rel=0.15)
+
+
+def test_integrate__concentrated_density_uniform__warns_with_the_number(recwarn):
+    from areamc.errors import AreamcWarning
+    from areamc.integrate import integrate_density
+
+    regions, source = _town_scene()
+    report = integrate_density(regions, source, stop=StopRule(points=2_000), seed=3, importance=False)
+    row = report.rows[0]
+    assert row.method == UNIFORM and row.effective_points < 100
+    messages = [str(w.message) for w in recwarn if issubclass(w.category, AreamcWarning)]
+    assert any("too concentrated" in m and f"{row.effective_points:,.0f} effective of 2,000 points" in m
+               for m in messages), messages
+    # importance sampling draws where the weight is: no warning, and every point counts
+    recwarn.clear()
+    report = integrate_density(regions, source, stop=StopRule(points=2_000), seed=3)
+    assert report.rows[0].method == IMPORTANCE
+    assert not [w for w in recwarn if "too concentrated" in str(w.message)]
