@@ -36,6 +36,7 @@ __all__ = [
     "ProjectedLayer",
     "transformer",
     "transform_geometry",
+    "transform_geometries",
     "densify",
     "lonlat_bounds",
     "choose_plane",
@@ -57,6 +58,10 @@ LONLAT = pyproj.CRS.from_epsg(4326)
 DEFAULT_DENSIFY_M = 1000.0
 #: Most vertices densification may create over a layer (memory about 100 bytes a vertex).
 MAX_DENSIFIED_VERTICES = 20_000_000
+#: Coordinates sent to PROJ in one call when a layer is transformed (:func:`transform_geometries`):
+#: larger layers go in runs of whole features of about this many (some 16 bytes a coordinate
+#: several times over while a call runs).
+_BATCH_COORDS = 1_000_000
 #: Largest relative area error tolerated of an "equal-area" plane over the data.
 #: True equal-area projections measure below 1e-9; UTM (scale 0.9996) near 8e-4.
 MAX_AREA_DISTORTION = 1e-6
@@ -145,15 +150,90 @@ def transform_geometry(geom, trans: pyproj.Transformer, label: str = "geometry")
     CRS; PROJ returns ``inf`` for points it cannot project, which is refused
     here instead of propagating into areas.
     """
+    out, bad = _transform_batch(geom, trans)
+    if bad >= 0:
+        raise CRSError(_unprojectable(label, trans))
+    return out
+
+
+def transform_geometries(geoms, trans: pyproj.Transformer, label=None) -> np.ndarray:
+    """Transform an array of shapely geometries in one PROJ call; raise :class:`CRSError` on non-finite output.
+
+    Coordinates go in the transformer's source CRS and come out in its target
+    CRS, exactly as :func:`transform_geometry` gives them one geometry at a time:
+    ``shapely.transform`` hands every coordinate of the array, geometry after
+    geometry, to one ``trans.transform`` call, so PROJ sees the same points in
+    the same order.
+
+    Parameters
+    ----------
+    geoms : array-like of shapely geometries
+    trans : pyproj.Transformer
+        From :func:`transformer` (``always_xy``: lon/lat in degrees, planes in their units).
+    label : callable, optional
+        ``label(i) -> str`` names geometry `i` in the message (a file and its feature);
+        default ``"geometry {i}"``.
+
+    Raises
+    ------
+    CRSError
+        Naming the first geometry with a coordinate PROJ cannot project (``inf``).
+    """
+    geoms = np.asarray(geoms, dtype=object)
+    out, bad = _transform_batch(geoms, trans)
+    if bad >= 0:
+        raise CRSError(_unprojectable(label(bad) if label else f"geometry {bad}", trans))
+    return out
+
+
+def _transform_batch(geoms, trans: pyproj.Transformer):
+    """Transform a geometry or an array of them: (result, position of the first non-finite one or -1).
+
+    An array goes to PROJ in one call, or for a layer of more than :data:`_BATCH_COORDS`
+    coordinates in consecutive runs of whole features of about that many (bounding the
+    memory a call takes); either way PROJ sees the same points in the same order.
+    """
+    if not isinstance(geoms, np.ndarray) or geoms.ndim != 1:
+        return _transform_call(geoms, trans)
+    ends = np.cumsum(shapely.get_num_coordinates(geoms))
+    if not len(ends) or ends[-1] <= _BATCH_COORDS:
+        return _transform_call(geoms, trans, ends)
+    marks = np.searchsorted(ends, np.arange(_BATCH_COORDS, ends[-1], _BATCH_COORDS), side="right")
+    bounds = np.unique(np.concatenate([[0], marks, [len(geoms)]]))
+    out = np.empty(len(geoms), dtype=object)
+    for lo, hi in zip(bounds[:-1], bounds[1:]):
+        out[lo:hi], bad = _transform_call(geoms[lo:hi], trans)
+        if bad >= 0:
+            return out, int(lo + bad)
+    return out, -1
+
+
+def _transform_call(geoms, trans: pyproj.Transformer, ends=None):
+    """One ``shapely.transform`` and one PROJ call: (result, position of the first non-finite geometry or -1)."""
+    if isinstance(geoms, np.ndarray) and not geoms.size:
+        return np.empty(geoms.shape, dtype=object), -1
+    first = []
 
     def apply(coords: np.ndarray) -> np.ndarray:
         x, y = trans.transform(coords[:, 0], coords[:, 1])
         out = np.column_stack([np.asarray(x, float), np.asarray(y, float)])
-        if not np.isfinite(out).all():
-            raise CRSError(f"{label}: coordinates cannot be projected to {trans.target_crs.name}")
+        finite = np.isfinite(out).all(axis=1)
+        if not finite.all():
+            first.append(int(np.argmin(finite)))
         return out
 
-    return shapely.transform(geom, apply)
+    out = shapely.transform(geoms, apply)
+    if not first:
+        return out, -1
+    # coordinates arrive geometry after geometry: the geometry holding coordinate k is the
+    # first whose running count of coordinates exceeds k
+    if ends is None:
+        ends = np.cumsum(np.atleast_1d(shapely.get_num_coordinates(geoms)))
+    return out, int(np.searchsorted(ends, first[0], side="right"))
+
+
+def _unprojectable(label: str, trans: pyproj.Transformer) -> str:
+    return f"{label}: coordinates cannot be projected to {trans.target_crs.name}"
 
 
 def _step_in_crs_units(crs: pyproj.CRS, step_m: float) -> float:
@@ -441,7 +521,7 @@ def _to_lonlat(dense: np.ndarray, layer: Layer) -> np.ndarray:
     """
     out = _transform_all(dense, transformer(layer.crs, LONLAT), layer)
     for i, geom in enumerate(out):
-        out[i] = globe.normalize(geom, LONLAT, f"{layer.path}: feature {layer.ids[i]}")
+        out[i] = globe.normalize(geom, LONLAT, _feature(layer, i))
     return out
 
 
@@ -465,21 +545,26 @@ def _to_plane(dense: np.ndarray, lonlat: np.ndarray, layer: Layer, crs: pyproj.C
     from_lonlat = transformer(LONLAT, crs)
     _, south, _, north = shapely.total_bounds(lonlat[care])
     torn = globe.tears_at_antimeridian(from_lonlat.transform, float(south), float(north))
+    cut = care if torn else np.zeros(len(dense), dtype=bool)
+    # two batches, one per transformer, each in feature order; the first feature at fault is named
     out = np.empty(len(dense), dtype=object)
-    for i, geom in enumerate(dense):
-        label = f"{layer.path}: feature {layer.ids[i]}"
-        if care[i] and torn:
-            cut = densify(globe.cut_at_antimeridian(lonlat[i]), LONLAT, step_m)
-            out[i] = transform_geometry(cut, from_lonlat, label)
-        else:
-            out[i] = transform_geometry(geom, to_plane, label)
-            if outline[i]:
-                out[i] = globe.close_seams(out[i])
+    out[~cut], bad_kept = _transform_batch(dense[~cut], to_plane)
+    pieces = np.array([densify(globe.cut_at_antimeridian(g), LONLAT, step_m) for g in lonlat[cut]], dtype=object)
+    out[cut], bad_cut = _transform_batch(pieces, from_lonlat)
+    bad = [int(np.flatnonzero(~cut)[bad_kept])] if bad_kept >= 0 else []
+    bad += [int(np.flatnonzero(cut)[bad_cut])] if bad_cut >= 0 else []
+    if bad:
+        raise CRSError(_unprojectable(_feature(layer, min(bad)), to_plane))
+    seams = outline & ~cut
+    if seams.any():
+        out[seams] = globe.close_seams(out[seams])
     return out
 
 
 def _transform_all(geoms: np.ndarray, trans: pyproj.Transformer, layer: Layer) -> np.ndarray:
-    out = np.empty(len(geoms), dtype=object)
-    for i, geom in enumerate(geoms):
-        out[i] = transform_geometry(geom, trans, f"{layer.path}: feature {layer.ids[i]}")
-    return out
+    """A layer's geometries transformed in one call (:func:`transform_geometries`), features named in messages."""
+    return transform_geometries(geoms, trans, lambda i: _feature(layer, i))
+
+
+def _feature(layer: Layer, i: int) -> str:
+    return f"{layer.path}: feature {layer.ids[i]}"

@@ -23,15 +23,28 @@ from areamc.exact import geodesic_area, planar_area
 from areamc.geodesy import WGS84, quadrangle_area
 from areamc.project import (
     LONLAT,
+    EqualAreaPlane,
     choose_plane,
     densify,
     measure_area_distortion,
     resolve_plane,
+    transform_geometries,
     transform_geometry,
     transformer,
 )
 
-from conftest import COUNTRY, EQUATOR_BOX, HIGH_LATITUDE_BOX, MID_LATITUDE_BOX, TEN_DEGREE_BOX, lonlat_box
+from conftest import (
+    CONCAVE,
+    COUNTRY,
+    EQUATOR_BOX,
+    HIGH_LATITUDE_BOX,
+    HOLED,
+    MID_LATITUDE_BOX,
+    MULTI,
+    TEN_DEGREE_BOX,
+    assert_refused,
+    lonlat_box,
+)
 
 EUROPE = (-10.0, 35.0, 30.0, 70.0)
 
@@ -373,3 +386,178 @@ def test_project_layer__global_extent__distortion_recorded(project):
     projected = project([box(-180.0, -60.0, 180.0, 60.0)])  # a band round the globe, edges on the seam
     assert projected.plane.label == "EPSG:6933"
     assert projected.plane.distortion < 1e-6
+
+
+# --------------------------------------------------------------------------------------------
+# A whole layer in one transform call: the same coordinates as feature by feature
+# --------------------------------------------------------------------------------------------
+
+# The reference below is built with pyproj and shapely alone: each feature densified with
+# shapely.segmentize (the step in the layer's own units: 1000 m, or 1000 / 111 320 degrees on a
+# lon/lat layer, docs/methods.md) and sent through its own call of a fresh
+# pyproj.Transformer.from_crs(..., always_xy=True).  The tool's single call must give the same
+# doubles, bit for bit (tolerance 0).
+
+
+def _stars(rng, n, x0, y0, spread, radius, vertices=9):
+    """`n` star-shaped polygons round (x0, y0) in the layer's units; every third has a hole, every fifth a twin."""
+    t = np.linspace(0.0, 2 * np.pi, vertices, endpoint=False)
+    out = []
+    for k in range(n):
+        cx, cy = x0 + rng.uniform(-spread, spread), y0 + rng.uniform(-spread, spread)
+        r = radius * rng.uniform(0.3, 1.0) * (1 + 0.3 * rng.uniform(-1, 1, vertices))
+        shell = np.column_stack([cx + r * np.cos(t), cy + r * np.sin(t)])
+        hole = [np.column_stack([cx + 0.1 * radius * np.cos(-t), cy + 0.1 * radius * np.sin(-t)])] if k % 3 == 0 else []
+        poly = Polygon(shell, hole)
+        if k % 5 == 0:
+            poly = shapely.MultiPolygon([poly, shapely.affinity.translate(poly, 3 * radius, 0)])
+        out.append(poly)
+    return out
+
+
+def _per_feature(geoms, src, dst, step):
+    trans = pyproj.Transformer.from_crs(src, dst, always_xy=True)
+
+    def one(geom):
+        return shapely.transform(shapely.segmentize(geom, step), lambda xy: np.column_stack(trans.transform(xy[:, 0], xy[:, 1])))
+
+    return [one(g) for g in geoms]
+
+
+def _assert_bit_identical(got, expected):
+    assert len(got) == len(expected)
+    assert all(shapely.equals_exact(np.asarray(got, dtype=object), np.asarray(expected, dtype=object), tolerance=0))
+    assert np.array_equal(shapely.get_coordinates(got), shapely.get_coordinates(expected))
+
+
+@pytest.mark.parametrize(
+    "layer_crs, centre, spread, radius, step",
+    [
+        ("EPSG:32632", (500_000.0, 5_300_000.0), 40_000.0, 3_000.0, 1000.0),
+        ("EPSG:4326", (10.6, 47.25), 0.4, 0.03, 1000.0 / 111_320.0),
+    ],
+    ids=["utm32n", "lonlat"],
+)
+def test_project_layer__whole_layer_in_one_call__identical_to_per_feature_pyproj(project, layer_crs, centre, spread, radius, step):
+    rng = np.random.default_rng(7)
+    projected = project(_stars(rng, 60, *centre, spread, radius), layer_crs=layer_crs)
+    source = projected.source.geometries
+    # the features reach 1 km edges and beyond, so densification did add vertices
+    assert shapely.get_num_coordinates(projected.planar).sum() > 1.5 * shapely.get_num_coordinates(source).sum()
+    _assert_bit_identical(projected.planar, _per_feature(source, layer_crs, projected.plane.crs, step))
+    _assert_bit_identical(projected.lonlat, _per_feature(source, layer_crs, "EPSG:4326", step))
+
+
+@pytest.mark.parametrize(
+    "far, crs, plane_label",
+    [
+        (box(170.0, -20.0, 190.0, -15.0), "EPSG:6933", "EPSG:6933"),  # across the antimeridian: cut in a torn plane
+        (box(-180.0, 80.0, 180.0, 90.0), None, "EPSG:6931"),  # round the pole: slits closed on the polar LAEA
+    ],
+    ids=["cylinder_cut", "polar_laea"],
+)
+def test_project_layer__globe_care_among_plain_features__plain_ones_identical(project, far, crs, plane_label):
+    # The features needing care take their own path (tests/test_globe.py checks their areas); the
+    # plain ones round them still come out bit for bit as feature-by-feature pyproj gives them.
+    rng = np.random.default_rng(11)
+    lat = -40.0 if crs else 70.0
+    plain = _stars(rng, 12, 20.0, lat, 2.0, 0.2)
+    geoms = plain[:5] + [far] + plain[5:]
+    projected = project(geoms, crs=crs)
+    assert projected.plane.label == plane_label
+    keep = [i for i in range(len(geoms)) if i != 5]
+    expected = _per_feature(projected.source.geometries[keep], "EPSG:4326", projected.plane.crs, 1000.0 / 111_320.0)
+    _assert_bit_identical(projected.planar[keep], expected)
+    assert projected.planar[5].is_valid and projected.planar[5].area > 0
+
+
+def test_transform_geometries__mixed_types__identical_to_one_by_one():
+    # Points, lines, holed polygons, multipolygons and an empty polygon in one array: one call
+    # gives what pyproj gives each of them alone (and what transform_geometry gives).
+    geoms = [Point(10.0, 47.0), shapely.LineString([(10.0, 47.0), (10.5, 47.2), (11.0, 47.1)]), HOLED, MULTI,
+             Polygon(), CONCAVE]
+    plane = pyproj.CRS.from_epsg(3035)
+    trans = transformer(LONLAT, plane)
+    got = transform_geometries(geoms, trans)
+    _assert_bit_identical(got, _per_feature(geoms, "EPSG:4326", plane, 1e9))  # a step of 1e9 adds no vertex
+    _assert_bit_identical(got, [transform_geometry(g, trans) for g in geoms])
+    assert transform_geometries([], trans).shape == (0,)
+
+
+# --------------------------------------------------------------------------------------------
+# Non-finite output names the feature at fault
+# --------------------------------------------------------------------------------------------
+
+#: LAEA centred on (0, 0) on WGS84.  Its centre's antipode (180, 0) has no image: Snyder (1987),
+#: ch. 24, shows the opposite point as the circle bounding the map [memory for the wording]; PROJ
+#: returns inf there (checked with pyproj in each test).  Conversely plane points beyond that circle
+#: (radius about 2 x 6 371 km, twice the authalic radius, common practice) have no lon/lat.
+LAEA_0_0 = "+proj=laea +lat_0=0 +lon_0=0 +x_0=0 +y_0=0 +datum=WGS84 +units=m +no_defs +type=crs"
+
+
+def _antipode_triangle():
+    """A triangle whose first vertex is the antipode: its first coordinate is the one at fault."""
+    return Polygon([(180.0, 0.0), (179.0, -1.0), (179.0, 1.0)])
+
+
+@pytest.mark.parametrize("bad", [[0], [2], [4], [2, 4]], ids=["first", "third", "last", "third_and_fifth"])
+def test_project_layer__non_finite__names_the_first_feature_at_fault(project, bad):
+    plane_crs = pyproj.CRS.from_proj4(LAEA_0_0)
+    x, y = pyproj.Transformer.from_crs("EPSG:4326", plane_crs, always_xy=True).transform(180.0, 0.0)
+    assert not (math.isfinite(x) and math.isfinite(y))  # the premise, from pyproj itself
+    ids = ["a", "b", "c", "d", "e"]
+    geoms = [_antipode_triangle() if i in bad else box(10.0 * i, 0.0, 10.0 * i + 1.0, 1.0) for i in range(5)]
+    plane = EqualAreaPlane(plane_crs, "laea", False, 0.0)  # given, so no extent check comes first
+    with pytest.raises(CRSError, match=rf"^geometries: feature {ids[bad[0]]}: coordinates cannot be projected"):
+        project(geoms, ids=ids, plane=plane)
+    good = [g for i, g in enumerate(geoms) if i not in bad]  # without them the layer goes through
+    assert len(project(good, plane=plane).planar) == 5 - len(bad)
+
+
+def test_transform_geometries__non_finite__position_counts_empty_geometries():
+    # Coordinates are matched to their geometry by running counts; empty geometries count none.
+    trans = transformer(LONLAT, pyproj.CRS.from_proj4(LAEA_0_0))
+    geoms = [Point(1.0, 1.0), Polygon(), box(2.0, 2.0, 3.0, 3.0), Polygon(), Point(180.0, 0.0), Point(4.0, 4.0)]
+    with pytest.raises(CRSError, match=r"^item 4: coordinates cannot be projected"):
+        transform_geometries(geoms, trans, lambda i: f"item {i}")
+    with pytest.raises(CRSError, match=r"^geometry 4: "):
+        transform_geometries(geoms, trans)
+
+
+@pytest.mark.parametrize("bad", [["c"], ["c", "e"]], ids=["third", "third_and_fifth"])
+def test_cli_area__layer_point_without_lonlat__refused_naming_the_feature(capsys, tmp_path, bad):
+    # A layer in the LAEA above with a square beyond its bounding circle: PROJ's inverse gives inf
+    # (checked with pyproj), so the layer cannot reach lon/lat and the run is refused naming it.
+    import fiona
+    from shapely.geometry import mapping
+
+    far = 13_000_000.0
+    lon, lat = pyproj.Transformer.from_crs(LAEA_0_0, "EPSG:4326", always_xy=True).transform(far, 500.0)
+    assert not (math.isfinite(lon) and math.isfinite(lat))
+    path = tmp_path / "laea.gpkg"
+    schema = {"geometry": "Polygon", "properties": {"name": "str"}}
+    with fiona.open(path, "w", driver="GPKG", schema=schema, crs_wkt=pyproj.CRS(LAEA_0_0).to_wkt()) as dst:
+        for i, name in enumerate("abcde"):
+            x = far if name in bad else 5_000.0 * i
+            dst.write({"geometry": mapping(box(x, 0.0, x + 1000.0, 1000.0)), "properties": {"name": name}})
+    assert_refused(capsys, ["area", path, "--id-field", "name", "-n", "1000"],
+                   r"laea\.gpkg: feature c: coordinates cannot be projected", tmp_path)
+
+
+@pytest.mark.parametrize("batch", [1, 50, 400])
+def test_transform_geometries__large_layer_in_runs__identical_and_names_the_feature(monkeypatch, batch):
+    # A layer of more coordinates than one call takes goes in runs of whole features; with the run
+    # shrunk to `batch` coordinates, the result is still bit for bit the feature-by-feature pyproj
+    # one, and the feature at fault is still the one named.
+    from areamc import project as project_module
+
+    monkeypatch.setattr(project_module, "_BATCH_COORDS", batch)
+    rng = np.random.default_rng(3)
+    geoms = [shapely.segmentize(g, 0.05) for g in _stars(rng, 30, 10.6, 47.25, 0.4, 0.03)]
+    plane = pyproj.CRS.from_epsg(3035)
+    got = transform_geometries(geoms, transformer(LONLAT, plane))
+    _assert_bit_identical(got, _per_feature(geoms, "EPSG:4326", plane, 1e9))  # a step of 1e9 adds no vertex
+    geoms[17] = shapely.Point(180.0, 0.0)
+    geoms[23] = shapely.Point(180.0, 0.0)
+    with pytest.raises(CRSError, match=r"^geometry 17: "):
+        transform_geometries(geoms, transformer(LONLAT, pyproj.CRS.from_proj4(LAEA_0_0)))
