@@ -132,3 +132,14 @@ def test_weighted_sums__any_chunk__same_digits(capsys, folder, density):
         results.append(json.loads(out)["results"])
     assert all(r == results[0] for r in results[1:])
     assert all(math.isfinite(row["estimate"]) and row["estimate"] > 0 for row in results[0])
+
+
+def test_double_dash__a_file_named_dash_v__is_a_file_not_verbose(capsys, folder, monkeypatch):
+    """After ``--`` every argument is a file (POSIX utility syntax guideline 10, common practice): a file
+    named ``-v`` must not switch on tracebacks, so a bad option still gives one line."""
+    import shutil
+
+    shutil.copy(folder / "districts.geojson", folder / "-v")
+    monkeypatch.chdir(folder)
+    assert_refused(capsys, ["area", "--crs", "EPSG:3857", "-n", "100", "--", "-v"],
+                   r"--crs EPSG:3857: not equal-area", folder)

@@ -76,7 +76,8 @@ def _show_warning(message, category, filename, lineno, file=None, line=None):
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; returns the exit status."""
     argv = sys.argv[1:] if argv is None else list(argv)
-    verbose = "--verbose" in argv or "-v" in argv
+    options = argv[: argv.index("--")] if "--" in argv else argv  # after "--" every argument is a file
+    verbose = "--verbose" in options or "-v" in options
     with warnings.catch_warnings():
         warnings.showwarning = _show_warning
         if not verbose:
