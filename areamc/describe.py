@@ -16,7 +16,7 @@ import shapely
 
 from .exact import geodesic_area, planar_area
 from .load import Layer, list_layers
-from .project import DEFAULT_DENSIFY_M, LONLAT, lonlat_bounds, project_layer, resolve_plane, transform_geometry, transformer
+from .project import DEFAULT_DENSIFY_M, LONLAT, lonlat_bounds, project_layer, resolve_plane, transform_geometries, transformer
 
 __all__ = ["LayerDescription", "describe_layer"]
 
@@ -100,8 +100,7 @@ def describe_layer(layer: Layer, *, crs: str | pyproj.CRS | None = None,
         geodesic_total = float(sum(geodesic_area(g) for g in projected.lonlat))
     else:
         to_lonlat = transformer(layer.crs, LONLAT)
-        lonlat = [transform_geometry(g, to_lonlat, f"{layer.path}: feature {fid}")
-                  for fid, g in zip(layer.ids, layer.geometries)]
+        lonlat = transform_geometries(layer.geometries, to_lonlat, lambda i: f"{layer.path}: feature {layer.ids[i]}")
         extent_lonlat = tuple(round(float(v), 6) for v in shapely.total_bounds(lonlat))
         plane = resolve_plane(extent_lonlat, crs)
         planar_total = geodesic_total = None

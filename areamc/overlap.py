@@ -22,7 +22,7 @@ from .engine import DEFAULT_CHUNK, hit_or_miss
 from .estimate import AreaEstimate, area_precision
 from .exact import at_least, intersection_areas, multiplicity_areas, planar_area
 from .intervals import check_confidence
-from .project import ProjectedLayer, transform_geometry, transformer
+from .project import ProjectedLayer, transform_geometries, transformer
 from .errors import OptionError
 from .runinfo import RunInfo
 from .samplers import Box, SamplerFactory, make_sampler, sampler_name
@@ -272,8 +272,8 @@ def overlap_geometries(report: OverlapReport, a: ProjectedLayer, b: ProjectedLay
     other = a if b is None else b
     target = a.source.crs if crs is None else crs
     back = transformer(a.plane.crs, target)
-    out = []
-    for row, (i, j) in zip(report.rows, report.pairs):
-        inter = shapely.intersection(a.planar[i], other.planar[j])
-        out.append(transform_geometry(inter, back, f"overlap {row.id_a} x {row.id_b}"))
-    return np.array(out, dtype=object)
+    if not report.pairs:
+        return np.array([], dtype=object)
+    i, j = (np.array(k) for k in zip(*report.pairs))
+    inter = shapely.intersection(a.planar[i], other.planar[j])
+    return transform_geometries(inter, back, lambda n: f"overlap {report.rows[n].id_a} x {report.rows[n].id_b}")

@@ -21,7 +21,7 @@ from . import globe
 from .errors import AreamcWarning, LayerError, OptionError
 from .load import Layer, read_layer
 from .geodesy import WGS84
-from .project import LONLAT, transformer, transform_geometry
+from .project import LONLAT, transform_geometries, transform_geometry, transformer
 
 __all__ = ["geodesic_circle", "zones_from_points", "read_zones", "DEFAULT_VERTICES", "MAX_CIRCLE_VERTICES"]
 
@@ -223,8 +223,8 @@ def read_zones(
     same = zones.crs.equals(LONLAT, ignore_axis_order=True)
     to_layer = None if same else transformer(LONLAT, zones.crs)
     geometries = zones.geometries.copy()
-    for n, circle in zip(where, circles.geometries):
-        geometries[n] = circle if same else transform_geometry(circle, to_layer, f"{zones.path}: feature {zones.ids[n]}")
+    geometries[where] = circles.geometries if same else transform_geometries(
+        circles.geometries, to_layer, lambda k: f"{zones.path}: feature {zones.ids[where[k]]}")
     warnings.warn(AreamcWarning(
         f"{zones.source}: mixed layer: {len(where)} point feature(s) become geodesic circles and "
         f"{len(zones) - len(where)} polygon feature(s) are used as they are"), stacklevel=2)
