@@ -10,6 +10,7 @@ box -> exact planar and geodesic areas (:mod:`areamc.exact`) -> frozen
 from __future__ import annotations
 
 from dataclasses import asdict, dataclass
+from functools import partial
 from typing import Callable
 
 import numpy as np
@@ -57,6 +58,10 @@ class AreaRow:
         Why sampling stopped ("budget", "target", "time").
     pilot_points : int
         Points of the pilot stage of a precision target, not in the estimate.
+    replicates : int
+        0 for a binomial count (Wilson interval, uniform sampler); else the
+        independent replicates (Sobol scramblings, rounds of strata) whose
+        spread gave the standard error and a Student-t interval.
     """
 
     id: str
@@ -74,6 +79,7 @@ class AreaRow:
     flagged: bool
     stop_reason: str
     pilot_points: int
+    replicates: int = 0
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -182,11 +188,12 @@ def estimate_areas(
         box = Box.of(geom.bounds)
         run = hit_or_miss(
             make_sampler(sampler, child_seed(streams, i), box),
-            inside(geom),
+            inside(geom, box, stop.points),
             Stopper(stop, precision=area_precision(box.area, confidence)),
             chunk=chunk,
             trace_every=trace_every,
-            progress=None if progress is None else _report(progress, fid, box.area, confidence),
+            progress=None if progress is None else partial(progress, fid),
+            confidence=confidence,
         )
         traces.append(run.trace)
         planar = float(exact_areas[i]) if exact else None
@@ -216,11 +223,6 @@ def _row(fid: str, index: int, run: HitOrMissRun, confidence: float, planar: flo
         flagged=flagged(z),
         stop_reason=run.reason,
         pilot_points=run.pilot_points,
+        replicates=est.replicates,
     )
 
-
-def _report(progress: Progress, fid: str, box_area: float, confidence: float):
-    def call(drawn: int, points: int, hits) -> None:
-        progress(fid, drawn, AreaEstimate.from_counts(int(hits[0]), points, box_area, confidence))
-
-    return call

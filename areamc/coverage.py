@@ -28,20 +28,21 @@ from .errors import OptionError
 from .estimate import share_precision
 from .exact import at_least, covered_area, multiplicity_areas, planar_area
 from .intervals import check_confidence, wilson_interval
+from .parallel import SourceHandle, check_workers, map_ordered, source_handle, workers_for_source
 from .project import ProjectedLayer
 from .runinfo import RunInfo
-from .samplers import Box, SamplerFactory, make_sampler, sampler_name
+from .samplers import Box, SamplerFactory, make_sampler, sampler_name, check_sampler
 from .seeds import child_seed, job_root, make_seed
 from .sequential import FALLS_SHORT, UNDECIDED, check_claim, claim_decided, confidence_sequence, verdict
 from .stopping import StopRule, Stopper
 from .weighted import (
     IMPORTANCE,
-    MIN_EFFECTIVE_POINTS,
     NONE,
     SHARES,
-    UNIFORM,
+    Concentration,
     WeightedRun,
     check_weighted_rule,
+    concentration,
     concentration_warning,
     effective_points,
     weighted_run,
@@ -73,11 +74,12 @@ class PopulationShare:
         ``share x total``.
     share, stderr, ci_low, ci_high : float or None
         Covered share of the population (0..1), Wilson interval for
-        importance sampling (the confidence sequence with a claim), normal
-        (delta method) for uniform sampling; None with no density near the region.
+        importance sampling over units (the confidence sequence with a claim), normal
+        (delta method) for grid and uniform sampling; None with no density near the region.
     points : int
     method : str
-        "importance", "uniform" or "none".
+        "importance" (over blocks or cells), "grid-importance" (from a pilot grid of density values),
+        "uniform" or "none".
     exact_share : float or None
         Exact covered share at k = 1 (areal weighting or cell fractions).
     verdict : str or None
@@ -86,6 +88,10 @@ class PopulationShare:
         Kish's effective number of points of the population run
         (:attr:`~areamc.weighted.WeightedRun.effective_points`); a warning
         names regions below :data:`~areamc.weighted.MIN_EFFECTIVE_POINTS`.
+    largest_weight_share : float
+        The largest share of the run's in-region total carried by one point
+        (:attr:`~areamc.weighted.WeightedRun.largest_weight_share`); a warning
+        names regions above :data:`~areamc.weighted.MAX_WEIGHT_SHARE`.
     """
 
     total: float
@@ -99,6 +105,7 @@ class PopulationShare:
     exact_share: float | None
     verdict: str | None
     effective_points: float = 0.0
+    largest_weight_share: float = 0.0
 
     def to_dict(self) -> dict:
         """Fields under the names rows carry them (``population_share``, ...)."""
@@ -114,6 +121,7 @@ class PopulationShare:
             "exact_population_share": self.exact_share,
             "population_verdict": self.verdict,
             "population_effective_points": self.effective_points,
+            "population_largest_weight_share": self.largest_weight_share,
         }
 
 
@@ -255,6 +263,7 @@ def estimate_coverage(
     exact_time_limit_s: float = 10.0,
     density: DensitySource | None = None,
     importance: bool = True,
+    workers: int | None = 1,
 ) -> CoverageReport:
     """Estimate, per region, the share covered by at least k zones for each k in `ks`.
 
@@ -283,7 +292,11 @@ def estimate_coverage(
     density : DensitySource, optional
         Also estimate covered population, from ``density.for_region(region)``.
     importance : bool
-        Sample the density by importance where the source allows.
+        Sample the density by importance: over blocks or cells where the source has them, else from a
+        pilot grid of density values (expressions); False samples uniformly in each region's box.
+    workers : int or None
+        Worker processes regions are shared among (None: every usable core); the rows are
+        identical, bit for bit, for any number (:func:`~areamc.parallel.map_ordered`).
 
     Returns
     -------
@@ -291,7 +304,9 @@ def estimate_coverage(
     """
     stop = stop or StopRule()
     confidence = check_confidence(confidence)
+    check_sampler(sampler, "coverage")
     ks = _check_ks(ks)
+    workers = check_workers(workers)
     if claim is not None:
         claim = check_claim(claim)
     if density is not None:
@@ -304,41 +319,88 @@ def estimate_coverage(
     shapely.prepare(zones.planar)
     tree = shapely.STRtree(zones.planar)
     region_areas = planar_area(regions.planar)
-    rows: list[CoverageRow] = []
+    handle = source_handle(density)
+    job = _CoverageJob(regions, zones.planar, tree, region_areas, ks, stop, confidence, claim, streams, sampler, chunk,
+                       exact, exact_time_limit_s, handle, importance)
+    workers = workers_for_source(workers, handle, len(regions))
+    results = map_ordered(_coverage_region, range(len(regions)), workers, shared=job)
+    rows: list[CoverageRow] = [row for result in results for row in result.rows]
     status: dict = {}
-    views = []
-    concentrated: list[tuple[str, float, int]] = []
-    decided = claim_decided(claim, confidence) if claim is not None else None
-    for r, (rid, region) in enumerate(zip(regions.ids, regions.planar)):
-        near = zones.planar[np.sort(tree.query(region, predicate="intersects"))]
-        box = Box.of(region.bounds)
-        classify = region_classifier(region, near, ks)
-        run = hit_or_miss(
-            make_sampler(sampler, child_seed(streams, r, _AREA_STREAM), box),
-            classify,
-            Stopper(stop, precision=share_precision(confidence), decided=decided),
-            chunk=chunk,
-        )
-        exact_shares, status[rid] = _exact_shares(region, near, ks, exact, exact_time_limit_s)
-        people = None
-        if density is not None:
-            view = density.for_region(region)
-            views.append(view)
-            people, weighted, effective = _population(view, near, classify, child_seed(streams, r, _POPULATION_STREAM),
-                                                      stop, claim, confidence, sampler, chunk, importance, exact)
-            if weighted is not None and weighted.method == UNIFORM and effective < MIN_EFFECTIVE_POINTS:
-                concentrated.append((rid, effective, weighted.points))
-        n_in = run.hits[0]
-        for c, k in enumerate(ks):
-            rows.append(_row(rid, regions.source.indices[r], k, run.hits[c + 1], n_in, float(region_areas[r]),
-                             exact_shares.get(k), claim, confidence, run,
-                             None if people is None else people(c + 1, k)))
+    for rid, result in zip(regions.ids, results):
+        status[rid] = result.status
     if density is not None:
-        warn_nodata(density, views)
-        concentration_warning("coverage", concentrated)
+        warn_nodata(density, results)
+        concentration_warning("coverage", [result.concentrated for result in results if result.concentrated])
     info = RunInfo("coverage", regions.plane, confidence, int(root.entropy), sampler_name(sampler), stop,
                    regions.densify_m)
     return CoverageReport(tuple(rows), info, ks, claim, status)
+
+
+@dataclass(frozen=True)
+class _CoverageJob:
+    """What every region's work shares (sent once to each worker process; plane metres)."""
+
+    regions: ProjectedLayer
+    zones: np.ndarray
+    tree: shapely.STRtree
+    region_areas: np.ndarray
+    ks: tuple[int, ...]
+    stop: StopRule
+    confidence: float
+    claim: float | None
+    streams: np.random.SeedSequence
+    sampler: str | SamplerFactory
+    chunk: int
+    exact: bool
+    exact_time_limit_s: float
+    density: SourceHandle
+    importance: bool
+
+
+@dataclass(frozen=True)
+class _RegionResult:
+    """One region's rows (one per k), exact-share status, the nodata cells its view met, and its concentration note."""
+
+    rows: tuple[CoverageRow, ...]
+    status: str
+    nodata_cells: np.ndarray
+    concentrated: Concentration | None
+
+
+_NO_CELLS = np.zeros(0, dtype=np.int64)
+
+
+def _coverage_region(job: _CoverageJob, r: int) -> _RegionResult:
+    """Sample region `r` (its area stream, then its population stream) and build its rows; runs in any process."""
+    ks, stop, confidence, claim, sampler, chunk = job.ks, job.stop, job.confidence, job.claim, job.sampler, job.chunk
+    streams, exact, importance, regions = job.streams, job.exact, job.importance, job.regions
+    density = job.density.get()
+    rid, region = regions.ids[r], regions.planar[r]
+    decided = claim_decided(claim, confidence) if claim is not None else None
+    near = job.zones[np.sort(job.tree.query(region, predicate="intersects"))]
+    box = Box.of(region.bounds)
+    classify = region_classifier(region, near, ks)
+    run = hit_or_miss(
+        make_sampler(sampler, child_seed(streams, r, _AREA_STREAM), box),
+        classify,
+        Stopper(stop, precision=share_precision(confidence), decided=decided),
+        chunk=chunk,
+    )
+    exact_shares, status = _exact_shares(region, near, ks, exact, job.exact_time_limit_s)
+    people, note, nodata = None, None, _NO_CELLS
+    if density is not None:
+        view = density.for_region(region)
+        nodata = view.nodata_cells
+        people, weighted, effective = _population(view, near, classify, child_seed(streams, r, _POPULATION_STREAM),
+                                                  stop, claim, confidence, sampler, chunk, importance, exact)
+        note = concentration(rid, weighted, effective)
+    n_in = run.hits[0]
+    rows = []
+    for c, k in enumerate(ks):
+        rows.append(_row(rid, regions.source.indices[r], k, run.hits[c + 1], n_in, float(job.region_areas[r]),
+                         exact_shares.get(k), claim, confidence, run,
+                         None if people is None else people(c + 1, k)))
+    return _RegionResult(tuple(rows), status, nodata, note)
 
 
 def _exact_shares(region, near, ks, exact, limit_s) -> tuple[dict, str]:
@@ -416,4 +478,5 @@ def _population_share(run: WeightedRun, column, k, truth, covered_truth, claim, 
         exact_share=covered_truth if k == 1 else None,
         verdict=verdict(int(run.sums[column]), int(run.sums[0]), claim, confidence) if decides else None,
         effective_points=effective,
+        largest_weight_share=run.largest_weight_share,
     )

@@ -13,22 +13,27 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Callable
 
+import math
+
 import numpy as np
 
 from .errors import OptionError
-from .estimate import AreaEstimate
-from .samplers import Sampler
+from .estimate import AreaEstimate, replicate_precision
+from .samplers import Sampler, is_replicate, sampler_name
 from .stopping import BUDGET, TIME, Stopper
 
-__all__ = ["DEFAULT_CHUNK", "TracePoint", "Sums", "HitOrMissRun", "accumulate", "hit_or_miss"]
+__all__ = ["DEFAULT_CHUNK", "TracePoint", "Sums", "HitOrMissRun", "accumulate", "hit_or_miss", "MIN_REPLICATES"]
 
 #: Points per chunk by default: memory is O(chunk).
 DEFAULT_CHUNK = 1 << 16
 
 Draw = Callable[[int], tuple[np.ndarray, np.ndarray]]
 Evaluate = Callable[[np.ndarray, np.ndarray], np.ndarray]
-#: ``progress(drawn, points, sums)``: points drawn so far in the run (pilot included), and the current stage's points and sums.
-Progress = Callable[[int, int, np.ndarray], None]
+#: ``progress(drawn, points, sums, sumsq)``: points drawn so far in the run (pilot included), and the current
+#: stage's points, sums and sums of squares.
+Progress = Callable[[int, int, np.ndarray, np.ndarray], None]
+#: ``progress(drawn, estimate)`` of :func:`hit_or_miss`: points drawn so far, and column 0's running estimate.
+EstimateProgress = Callable[[int, AreaEstimate], None]
 
 
 @dataclass(frozen=True)
@@ -83,6 +88,7 @@ def accumulate(
     chunk: int = DEFAULT_CHUNK,
     trace_every: int | None = None,
     progress: Progress | None = None,
+    on_final: Callable[[int], int] | None = None,
 ) -> Sums:
     """Draw points chunk by chunk, score them, and merge the sums in order until `stop` says so.
 
@@ -104,6 +110,10 @@ def accumulate(
         and once more at the end if the last point is off that grid.
     progress : callable, optional
         Called after each chunk (see :data:`Progress`).
+    on_final : callable, optional
+        ``on_final(size) -> size`` between the pilot and the final batch of
+        a precision target: lets a sampler change how it draws (for example
+        reallocate strata) and resize the batch to match.
 
     Returns
     -------
@@ -117,6 +127,8 @@ def accumulate(
     if final is None:
         return first
     size, reason = final
+    if on_final is not None:
+        size = on_final(size)
     second = _stage(draw, evaluate, size, lambda *_: TIME if stop.out_of_time() else None,
                     chunk, trace_every, progress, first.points)
     if second.reason == TIME:
@@ -146,7 +158,7 @@ def _stage(draw, evaluate, budget, check, chunk, trace_every, progress, drawn_be
         points += n
         sums, sumsq = totals.current()
         if progress is not None:
-            progress(drawn_before + points, points, sums)
+            progress(drawn_before + points, points, sums, sumsq)
         reason = check(sums, sumsq, points)
         if reason is not None:
             break
@@ -220,7 +232,14 @@ def _extend_trace(trace: list[TracePoint], scores: np.ndarray, start: int, sums:
 
 @dataclass(frozen=True)
 class HitOrMissRun:
-    """Counts from :func:`hit_or_miss`: points behind the counts, hits per column, the box, the trace."""
+    """Counts from :func:`hit_or_miss`: points behind the counts, hits per column, the box, the trace.
+
+    For a replicate sampler (:class:`~areamc.samplers.ReplicateSampler`)
+    `replicates` is their number, `sums` and `sumsq` the sums of the
+    replicate estimates per column (m²), `known` the exactly known part
+    added to each and `span` the sampled part's area; the estimate comes
+    from their spread.
+    """
 
     points: int
     hits: tuple[int, ...]
@@ -228,9 +247,18 @@ class HitOrMissRun:
     trace: tuple[TracePoint, ...]
     reason: str
     pilot_points: int = 0
+    replicates: int = 0
+    sums: tuple[float, ...] = ()
+    sumsq: tuple[float, ...] = ()
+    known: float = 0.0
+    span: float = 0.0
 
     def estimate(self, column: int = 0, confidence: float = 0.95) -> AreaEstimate:
-        """The area estimate (m²) of one column, from the merged counts."""
+        """The area estimate (m²) of one column, from the merged counts (or replicate sums)."""
+        if self.replicates:
+            return AreaEstimate.from_replicates(
+                self.sums[column], self.sumsq[column], self.replicates, known=self.known, span=self.span,
+                points=self.points, hits=self.hits[column], box_area=self.box_area, confidence=confidence)
         return AreaEstimate.from_counts(self.hits[column], self.points, self.box_area, confidence)
 
 
@@ -244,30 +272,115 @@ def hit_or_miss(
     *,
     chunk: int = DEFAULT_CHUNK,
     trace_every: int | None = None,
-    progress: Progress | None = None,
+    progress: EstimateProgress | None = None,
+    confidence: float = 0.95,
 ) -> HitOrMissRun:
     """Throw the sampler's points into its box and count hits (see :func:`accumulate` for the options).
 
     Parameters
     ----------
     sampler : Sampler
-        Points of a :class:`~areamc.samplers.Box` domain, plane metres.
+        Points of a :class:`~areamc.samplers.Box` domain, plane metres.  A
+        :class:`~areamc.samplers.ReplicateSampler` is drawn whole replicates
+        at a time and judged by their spread (:func:`_replicate_run`).
     classify : callable
         ``classify(x, y)`` returns a bool array of shape ``(n,)`` (one set) or
         ``(n, m)`` (m sets counted on the same points).
     stop : Stopper
+    progress : callable, optional
+        ``progress(drawn, estimate)`` after each chunk: points drawn so far
+        (pilot included) and column 0's running :class:`AreaEstimate` (m²).
+    confidence : float
+        Of the running estimates, and of the precision measure of replicate
+        samplers (plain runs are judged by the stopper's own).
 
     Returns
     -------
     HitOrMissRun
     """
+    if is_replicate(sampler):
+        return _replicate_run(sampler, classify, stop, chunk, trace_every, progress, confidence)
+    box_area = sampler.domain.area
+
+    def report(drawn: int, points: int, sums, _sumsq) -> None:
+        progress(drawn, AreaEstimate.from_counts(int(sums[0]), points, box_area, confidence))
+
     run = accumulate(
         sampler.random,
         lambda x, y: np.asarray(classify(x, y), dtype=bool),
         stop,
         chunk=chunk,
         trace_every=trace_every,
-        progress=progress,
+        progress=None if progress is None else report,
     )
     return HitOrMissRun(run.points, tuple(int(h) for h in run.sums), sampler.domain.area, run.trace,
                         run.reason, run.pilot_points)
+
+
+#: Fewest replicates a replicate sampler's run may have (and a pilot waits for).
+MIN_REPLICATES = 16
+
+
+def _replicate_run(sampler, classify, stop: Stopper, chunk, trace_every, progress, confidence) -> HitOrMissRun:
+    """Hit-or-miss by whole replicates: the engine sums each replicate's estimate, the spread gives the interval.
+
+    The sampler is bound to the classifier (a stratified sampler takes its
+    strata from the classifier's cell grid) and planned for the run's
+    budget, then each step of :func:`accumulate` is one replicate; chunks
+    are whole replicates, so fixed-count results do not depend on `chunk`.
+    """
+    if trace_every is not None:
+        raise OptionError(f"{{param}}: running estimates are recorded for the uniform sampler, "
+                          f"not {sampler_name(type(sampler))!r}", param="trace_every")
+    _check_positive(chunk, "chunk")
+    if hasattr(sampler, "bind"):
+        sampler.bind(classify)
+    if hasattr(sampler, "plan"):
+        sampler.plan(stop.rule.points)  # None for a precision target
+    size = sampler.replicate_size
+    if stop.rule.point_budget // size < MIN_REPLICATES:
+        raise OptionError(f"{{param}}: the {sampler_name(type(sampler))!r} sampler needs at least "
+                          f"{MIN_REPLICATES * size:,} points here ({MIN_REPLICATES} replicates of {size:,})",
+                          param="points")
+    stopper = stop.per_replicate(size, replicate_precision(sampler.known, sampler.span, confidence, MIN_REPLICATES))
+    drawn = [0]  # points drawn so far, pilot included
+    pilot = [0]
+    hits: list[np.ndarray] = []  # hit counts of the current stage, per chunk
+
+    def draw(k: int):
+        drawn[0] += k * sampler.replicate_size
+        return sampler.random(k * sampler.replicate_size)
+
+    def evaluate(x, y):
+        scores = np.asarray(classify(x, y), dtype=bool)
+        scores = scores[:, None] if scores.ndim == 1 else scores
+        hits.append(np.count_nonzero(scores, axis=0))
+        return sampler.totals(scores)
+
+    def on_final(steps: int) -> int:
+        pilot[0] = drawn[0]
+        hits.clear()
+        before = sampler.replicate_size
+        sampler.next_stage()
+        after = sampler.replicate_size
+        room = (stop.rule.point_budget - pilot[0]) // after
+        return int(max(1, min(max(math.ceil(steps * before / after), MIN_REPLICATES), room)))
+
+    def report(_drawn: int, steps: int, sums, sumsq) -> None:
+        if steps >= 2:
+            progress(drawn[0], AreaEstimate.from_replicates(
+                float(sums[0]), float(sumsq[0]), steps, known=sampler.known, span=sampler.span,
+                points=steps * sampler.replicate_size, hits=0, box_area=sampler.domain.area, confidence=confidence))
+
+    # a pilot is judged every MIN_REPLICATES replicates at most, so small replicates do not overshoot it
+    steps = max(1, chunk // size)
+    if stopper.two_stage:
+        steps = min(steps, MIN_REPLICATES)
+    run = accumulate(draw, evaluate, stopper, chunk=steps, progress=None if progress is None else report,
+                     on_final=on_final)
+    total_hits = np.sum(hits, axis=0)
+    return HitOrMissRun(run.points * sampler.replicate_size, tuple(int(h) for h in total_hits),
+                        sampler.domain.area, (), run.reason, pilot[0], run.points,
+                        tuple(float(v) for v in run.sums), tuple(float(v) for v in run.sumsq),
+                        float(sampler.known), float(sampler.span))
+

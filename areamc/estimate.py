@@ -16,7 +16,9 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from .checks import binomial_deviation, deviation_scale, normal_deviation
+from scipy import stats
+
+from .checks import binomial_deviation, deviation_scale, normal_deviation, t_deviation
 from .intervals import normal_interval, wilson_interval
 
 __all__ = [
@@ -25,6 +27,7 @@ __all__ = [
     "mean_estimate",
     "area_precision",
     "share_precision",
+    "replicate_precision",
 ]
 
 
@@ -44,6 +47,11 @@ class AreaEstimate:
     box_area : float
         The scale: the sampling box's area (m²), or a proposal's total count.
     confidence : float
+    replicates : int
+        0 for a binomial count (Wilson interval); otherwise the number of
+        independent replicates (scramblings, rounds of strata) whose spread
+        gave the standard error and a Student-t interval with
+        ``replicates - 1`` degrees of freedom (:meth:`from_replicates`).
     """
 
     estimate: float
@@ -54,6 +62,7 @@ class AreaEstimate:
     hits: int
     box_area: float
     confidence: float
+    replicates: int = 0
 
     @classmethod
     def from_counts(cls, hits: int, points: int, box_area: float, confidence: float) -> "AreaEstimate":
@@ -73,6 +82,35 @@ class AreaEstimate:
             confidence=float(confidence),
         )
 
+    @classmethod
+    def from_replicates(cls, total: float, total_sq: float, replicates: int, *, known: float, span: float,
+                        points: int, hits: int, box_area: float, confidence: float) -> "AreaEstimate":
+        """Form the estimate from `replicates` independent replicate estimates (their sum and sum of squares).
+
+        ``estimate = known + mean``, standard error ``s / sqrt(R)`` from the
+        sample standard deviation ``s`` of the replicates, and the Student-t
+        interval with ``R - 1`` degrees of freedom, clipped to
+        ``[known, known + span]`` (what the set's area can be).  Areas in m².
+        """
+        if replicates < 2:
+            raise ValueError("a replicate interval needs at least two replicates")
+        mean = total / replicates
+        var = max(total_sq / replicates - mean * mean, 0.0) * replicates / (replicates - 1)
+        stderr = math.sqrt(var / replicates)
+        half = float(stats.t.isf((1 - confidence) / 2, replicates - 1)) * stderr
+        estimate = known + mean
+        return cls(
+            estimate=estimate,
+            stderr=stderr,
+            ci_low=max(known, estimate - half),
+            ci_high=min(known + span, estimate + half),
+            points=int(points),
+            hits=int(hits),
+            box_area=float(box_area),
+            confidence=float(confidence),
+            replicates=int(replicates),
+        )
+
     @property
     def fraction(self) -> float:
         """Hit fraction ``hits / points``."""
@@ -84,7 +122,15 @@ class AreaEstimate:
         return (self.ci_high - self.ci_low) / 2
 
     def deviation(self, exact: float) -> float:
-        """Deviation from an exact value, from the binomial law at ``exact / box_area`` (:mod:`areamc.checks`)."""
+        """Deviation from an exact value as a normal score (:mod:`areamc.checks`).
+
+        From the binomial law at ``exact / box_area`` for counts; for
+        replicates, Student's t with ``replicates - 1`` degrees of freedom
+        (floored standard error) turned into the normal score of the same tail.
+        """
+        if self.replicates:
+            scale = deviation_scale(self.stderr, self.ci_low, self.ci_high, self.confidence)
+            return t_deviation(normal_deviation(self.estimate, exact, scale), self.replicates - 1)
         return binomial_deviation(self.hits, self.points, exact / self.box_area)
 
     def to_dict(self) -> dict:
@@ -166,5 +212,24 @@ def share_precision(confidence: float):
             return [(math.inf, 0.0)] * max(len(sums) - 1, 1)
         low, high = wilson_interval(sums[1:], n, confidence)
         return [((float(hi) - float(lo)) / 2, float(h) / n) for lo, hi, h in zip(low, high, sums[1:])]
+
+    return measure
+
+
+def replicate_precision(known: float, span: float, confidence: float, minimum: int = 2):
+    """Precision measure for replicate estimates (rows are replicates): the t half-width of every column.
+
+    Fewer than `minimum` replicates give an infinite half-width.
+    """
+
+    def measure(sums: np.ndarray, sumsq: np.ndarray, replicates: int):
+        if replicates < max(minimum, 2):
+            return [(math.inf, 0.0)] * len(sums)
+        out = []
+        for total, square in zip(sums, sumsq):
+            est = AreaEstimate.from_replicates(float(total), float(square), replicates, known=known, span=span,
+                                               points=replicates, hits=0, box_area=span, confidence=confidence)
+            out.append((est.half_width, est.estimate))
+        return out
 
     return measure

@@ -49,6 +49,8 @@ from __future__ import annotations
 
 import math
 
+from typing import Callable
+
 import numpy as np
 import shapely
 from shapely.geometry import MultiPolygon, Polygon
@@ -257,6 +259,30 @@ def _plain(geom) -> bool:
         lon.min() >= -180.0 and lon.max() <= 180.0 and np.abs(lat).max() < 90.0
         and (len(lon) < 2 or np.abs(np.diff(lon)).max() <= 180.0)
     )
+
+
+def normalize_many(geoms: np.ndarray, crs=None, where: Callable[[int], str] = lambda i: f"geometry {i}") -> np.ndarray:
+    """:func:`normalize` over an array of geometries, testing them all at once.
+
+    The test :func:`normalize` starts with (no longitude beyond ±180, no
+    latitude at ±90, no step of more than 180° between consecutive
+    coordinates of a geometry) runs over the whole array in one pass; only
+    the geometries that fail it are rewritten, one by one, with
+    ``where(i)`` naming geometry ``i`` in messages.  Returns a new array.
+    """
+    geoms = np.asarray(geoms, dtype=object)
+    if not len(geoms) or not _is_degrees(crs):
+        return geoms
+    xy, owner = shapely.get_coordinates(geoms, return_index=True)
+    out = geoms.copy()
+    if not len(xy):
+        return out
+    lon, lat = xy[:, 0], xy[:, 1]
+    bad = (lon < -180.0) | (lon > 180.0) | (np.abs(lat) >= 90.0)
+    bad[1:] |= (np.abs(np.diff(lon)) > 180.0) & (owner[1:] == owner[:-1])
+    for i in np.unique(owner[bad]):
+        out[i] = normalize(geoms[i], crs, where(int(i)))
+    return out
 
 
 def _is_degrees(crs) -> bool:

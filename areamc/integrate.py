@@ -1,8 +1,9 @@
 """The integrate job: totals of a density (for example persons) over regions.
 
 Per region the density source gives its view of the region (a raster window
-is read), then :func:`~areamc.weighted.weighted_run` samples it by importance
-where the view allows, else uniformly; the exact total (areal weighting for
+is read), then :func:`~areamc.weighted.weighted_run` samples it by importance:
+over its blocks or cells, else from a pilot grid of density values (uniformly
+only when importance sampling is turned off); the exact total (areal weighting for
 blocks, cell fractions for rasters, :mod:`areamc.exact`) is the check.
 Totals are in the source's count unit; mean densities per m² of the
 equal-area plane.
@@ -21,17 +22,18 @@ from .density import DensitySource, warn_nodata
 from .engine import DEFAULT_CHUNK
 from .exact import planar_area
 from .intervals import check_confidence
+from .parallel import SourceHandle, check_workers, map_ordered, source_handle, workers_for_source
 from .project import ProjectedLayer
 from .runinfo import RunInfo
-from .samplers import SamplerFactory, sampler_name
+from .samplers import SamplerFactory, sampler_name, check_sampler
 from .seeds import child_seed, job_root, make_seed
 from .stopping import StopRule
 from .weighted import (
-    MIN_EFFECTIVE_POINTS,
     NONE,
     TOTAL,
-    UNIFORM,
+    Concentration,
     check_weighted_rule,
+    concentration,
     concentration_warning,
     effective_points,
     weighted_run,
@@ -50,14 +52,15 @@ class IntegrateRow:
         Position of the region in its layer as read (0-based; ``Layer.indices``).
     estimate, stderr, ci_low, ci_high : float
         Total (count unit of the source, e.g. persons), standard error and
-        interval (Wilson for importance sampling, normal for uniform).
+        interval (Wilson for importance sampling over units, normal for grid and uniform sampling).
     mean_density : float
         ``estimate / region_area``: count per m².
     region_area : float
         Exact planar area of the region, m².
     points : int
     method : str
-        "importance", "uniform", or "none" (no density near the region).
+        "importance" (over blocks or cells), "grid-importance" (from a pilot grid of density values:
+        expressions, rasters in a CRS that is not equal-area), "uniform", or "none" (no density near the region).
     exact : float or None
         Exact total from the source (areal weighting, cell fractions), or None.
     z : float or None
@@ -70,6 +73,10 @@ class IntegrateRow:
     effective_points : float
         Kish's effective number of points of the run (:attr:`~areamc.weighted.WeightedRun.effective_points`);
         below :data:`~areamc.weighted.MIN_EFFECTIVE_POINTS` the interval is not to be trusted (a warning says so).
+    largest_weight_share : float
+        The largest share of the sampled in-region total carried by one point (0..1; ``1/hits`` for
+        importance sampling over units, 0 when nothing was met); above
+        :data:`~areamc.weighted.MAX_WEIGHT_SHARE` a warning says the interval is not to be trusted.
     """
 
     id: str
@@ -88,6 +95,7 @@ class IntegrateRow:
     stop_reason: str
     pilot_points: int
     effective_points: float = 0.0
+    largest_weight_share: float = 0.0
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -116,6 +124,7 @@ def integrate_density(
     chunk: int = DEFAULT_CHUNK,
     importance: bool = True,
     exact: bool = True,
+    workers: int | None = 1,
 ) -> IntegrateReport:
     """Integrate a density over each region.
 
@@ -133,9 +142,14 @@ def integrate_density(
     sampler : str or sampler class
         See :func:`~areamc.samplers.make_sampler`.
     importance : bool
-        Sample by importance where the source allows (blocks, rasters).
+        Sample by importance: over blocks or cells where the source has them, else from a pilot grid
+        of density values (expressions); False samples uniformly in each region's box.
     exact : bool
         Compute the source's exact total as a check.
+    workers : int or None
+        Worker processes regions are shared among (None: every usable core); the rows are
+        identical, bit for bit, for any number (:func:`~areamc.parallel.map_ordered`).  A raster
+        is reopened by its path in each worker.
 
     Returns
     -------
@@ -144,49 +158,80 @@ def integrate_density(
     stop = stop or StopRule()
     check_weighted_rule(stop)
     confidence = check_confidence(confidence)
+    check_sampler(sampler, "integrate")
+    workers = check_workers(workers)
     root = make_seed(seed)
     streams = job_root(root, "integrate")
     shapely.prepare(regions.planar)
     areas = planar_area(regions.planar)
-    rows = []
-    views = []
-    concentrated: list[tuple[str, float, int]] = []
-    for r, (rid, region) in enumerate(zip(regions.ids, regions.planar)):
-        view = source.for_region(region)
-        views.append(view)
-        run = weighted_run(
-            view,
-            lambda x, y, region=region: shapely.contains_xy(region, x, y)[:, None],
-            child_seed(streams, r),
-            stop=stop,
-            confidence=confidence,
-            target=TOTAL,
-            sampler=sampler,
-            chunk=chunk,
-            importance=importance,
-        )
-        truth = view.exact_total() if exact else None
-        if run is None:
-            z = normal_deviation(0.0, truth, 0.0) if truth is not None else None
-            rows.append(IntegrateRow(rid, regions.source.indices[r], 0.0, 0.0, 0.0, 0.0, 0.0, float(areas[r]), 0,
-                                     NONE, truth, z, flagged(z), NONE, 0))  # no density near the region: nothing was sampled
-            continue
-        est = run.total(confidence)
-        z = est.deviation(truth) if truth is not None else None
-        effective = effective_points(run, view, truth)
-        rows.append(
-            IntegrateRow(
-                id=rid, feature_index=regions.source.indices[r], estimate=est.estimate, stderr=est.stderr,
-                ci_low=est.ci_low, ci_high=est.ci_high,
-                mean_density=float(est.estimate / areas[r]) if areas[r] > 0 else math.nan, region_area=float(areas[r]),
-                points=run.points, method=run.method, exact=truth, z=z, flagged=flagged(z),
-                stop_reason=run.reason, pilot_points=run.pilot_points, effective_points=effective,
-            )
-        )
-        if run.method == UNIFORM and effective < MIN_EFFECTIVE_POINTS:
-            concentrated.append((rid, effective, run.points))
-    warn_nodata(source, views)
-    concentration_warning("integrate", concentrated)
+    handle = source_handle(source)
+    job = _IntegrateJob(regions, areas, handle, stop, confidence, streams, sampler, chunk, importance, exact)
+    workers = workers_for_source(workers, handle, len(regions))
+    results = map_ordered(_integrate_region, range(len(regions)), workers, shared=job)
+    rows = [result.row for result in results]
+    warn_nodata(source, results)
+    concentration_warning("integrate", [result.concentrated for result in results if result.concentrated])
     info = RunInfo("integrate", regions.plane, confidence, int(root.entropy), sampler_name(sampler), stop,
                    regions.densify_m)
     return IntegrateReport(tuple(rows), info, source.label)
+
+
+@dataclass(frozen=True)
+class _IntegrateJob:
+    """What every region's work shares (sent once to each worker process; plane metres)."""
+
+    regions: ProjectedLayer
+    areas: np.ndarray
+    source: SourceHandle
+    stop: StopRule
+    confidence: float
+    streams: np.random.SeedSequence
+    sampler: str | SamplerFactory
+    chunk: int
+    importance: bool
+    exact: bool
+
+
+@dataclass(frozen=True)
+class _RegionTotal:
+    """One region's row, the nodata cells its view met, and its concentration note."""
+
+    row: IntegrateRow
+    nodata_cells: np.ndarray
+    concentrated: Concentration | None = None
+
+
+def _integrate_region(job: _IntegrateJob, r: int) -> _RegionTotal:
+    """Sample region `r` from its stream and build its row; runs in any process."""
+    regions, areas, confidence = job.regions, job.areas, job.confidence
+    rid, region = regions.ids[r], regions.planar[r]
+    view = job.source.get().for_region(region)
+    run = weighted_run(
+        view,
+        lambda x, y, region=region: shapely.contains_xy(region, x, y)[:, None],
+        child_seed(job.streams, r),
+        stop=job.stop,
+        confidence=confidence,
+        target=TOTAL,
+        sampler=job.sampler,
+        chunk=job.chunk,
+        importance=job.importance,
+    )
+    truth = view.exact_total() if job.exact else None
+    if run is None:  # no density near the region: nothing was sampled
+        z = normal_deviation(0.0, truth, 0.0) if truth is not None else None
+        row = IntegrateRow(rid, regions.source.indices[r], 0.0, 0.0, 0.0, 0.0, 0.0, float(areas[r]), 0,
+                           NONE, truth, z, flagged(z), NONE, 0)
+        return _RegionTotal(row, view.nodata_cells)
+    est = run.total(confidence)
+    z = est.deviation(truth) if truth is not None else None
+    effective = effective_points(run, view, truth)
+    row = IntegrateRow(
+        id=rid, feature_index=regions.source.indices[r], estimate=est.estimate, stderr=est.stderr,
+        ci_low=est.ci_low, ci_high=est.ci_high,
+        mean_density=float(est.estimate / areas[r]) if areas[r] > 0 else math.nan, region_area=float(areas[r]),
+        points=run.points, method=run.method, exact=truth, z=z, flagged=flagged(z),
+        stop_reason=run.reason, pilot_points=run.pilot_points, effective_points=effective,
+        largest_weight_share=run.largest_weight_share,
+    )
+    return _RegionTotal(row, view.nodata_cells, concentration(rid, run, effective))

@@ -399,35 +399,73 @@ class _Collect(logging.Handler):
 
 
 def _build_layer(path, layer, crs, records, id_field, kind, allow_duplicate_ids=False) -> Layer:
+    """Turn records into a :class:`Layer`: geometries made and checked for the whole layer at once.
+
+    Each record becomes a shapely geometry; the checks on coordinates and
+    rings (:func:`_layer_problems`), the antimeridian and pole test, the
+    validity test and dropping Z run over the layer's arrays, so a layer of
+    many features costs little more than reading it.  The first feature at
+    fault, in file order, is named.
+    """
     source = f"{path} (layer {layer})"
-    types: Counter = Counter()
-    ids, geoms, props, indices = [], [], [], []
-    repaired, empty, skipped = [], [], []
-    skipped_types: Counter = Counter()
+    labels, shaped, props, positions = [], [], [], []
+    problems: dict[int, str] = {}
     for position, (fid, geometry, properties) in enumerate(records):
         label = _label(fid, properties, id_field, path)
-        geom = _geometry(geometry, crs, source, label)
-        if geom is None or geom.is_empty:
+        geom, problem = _shape(geometry)
+        if problem is not None:
+            problems.setdefault(len(labels), problem)
+        labels.append(label)
+        shaped.append(geom)
+        props.append(properties)
+        positions.append(position)
+    geoms = np.array(shaped, dtype=object)
+    for n, problem in _layer_problems(geoms, crs).items():
+        problems.setdefault(n, problem)
+    if problems:
+        first = min(problems)
+        raise LayerError(f"{source}: feature {labels[first]}: {problems[first]}")
+    types: Counter = Counter()
+    ids, kept, kept_props, indices = [], [], [], []
+    repaired, empty, skipped = [], [], []
+    skipped_types: Counter = Counter()
+    missing = np.array([g is None for g in geoms], dtype=bool)
+    blank = missing.copy()
+    blank[~missing] = shapely.is_empty(geoms[~missing])
+    type_names = np.full(len(geoms), "(empty)", dtype=object)
+    type_names[~blank] = [g.geom_type for g in geoms[~blank]]
+    fits = np.array([not b and _fits_type(t, kind) for b, t in zip(blank, type_names)], dtype=bool)
+    work = np.flatnonzero(fits)
+    flat = shapely.force_2d(geoms[work]) if work.size else geoms[work]
+    flat = globe.normalize_many(flat, crs, lambda i: f"{source}: feature {labels[work[i]]}")
+    polygonal = np.isin(np.array([g.geom_type for g in flat], dtype=object), list(_POLYGONAL))
+    valid = np.ones(len(flat), dtype=bool)
+    if polygonal.any():
+        valid[polygonal] = shapely.is_valid(flat[polygonal])
+    fixed = dict(zip(work, flat))
+    invalid = set(work[~valid].tolist())
+    for n in range(len(geoms)):
+        label = labels[n]
+        if blank[n]:
             types["(empty)"] += 1
             empty.append(label)
             continue
-        types[geom.geom_type] += 1
-        if not _fits(geom, kind):
+        types[type_names[n]] += 1
+        if not fits[n]:
             skipped.append(label)
-            skipped_types[geom.geom_type] += 1
+            skipped_types[type_names[n]] += 1
             continue
-        geom = shapely.force_2d(geom)
-        geom = globe.normalize(geom, crs, f"{source}: feature {label}")  # across ±180 and round the poles
-        if geom.geom_type in _POLYGONAL and not geom.is_valid:
+        geom = fixed[n]
+        if n in invalid:
             geom = _repair(geom)
             repaired.append(label)
             if geom.is_empty:
                 empty.append(label)
                 continue
         ids.append(label)
-        geoms.append(geom)
-        props.append(properties)
-        indices.append(position)
+        kept.append(geom)
+        kept_props.append(props[n])
+        indices.append(positions[n])
     wanted = {"polygon": "polygons", "point": "points"}.get(kind, "polygons or points")
     if not ids:
         raise LayerError(f"{source}: no {wanted} to work with ({_describe(types)})")
@@ -453,14 +491,16 @@ def _build_layer(path, layer, crs, records, id_field, kind, allow_duplicate_ids=
             AreamcWarning,
             stacklevel=3,
         )
+    out = np.empty(len(kept), dtype=object)
+    out[:] = kept
     return Layer(
         path=path,
         layer=layer,
         crs=crs,
         ids=tuple(ids),
-        geometries=np.array(geoms, dtype=object),
-        properties=tuple(props),
-        kind=_kind_of(kind, geoms),
+        geometries=out,
+        properties=tuple(kept_props),
+        kind=_kind_of(kind, kept),
         geometry_types=dict(types),
         repaired=tuple(repaired),
         empty=tuple(empty),
@@ -469,12 +509,101 @@ def _build_layer(path, layer, crs, records, id_field, kind, allow_duplicate_ids=
     )
 
 
-def _fits(geom, kind: str) -> bool:
+def _shape(geometry) -> tuple[object, str | None]:
+    """A record's shapely geometry (None when it has none), or the reason it cannot be made."""
+    if geometry is None:
+        return None, None
+    data = getattr(geometry, "__geo_interface__", geometry)
+    try:
+        return shape(data), None
+    except (ValueError, TypeError, AttributeError, KeyError, shapely.errors.GEOSException) as err:
+        short = _short_ring(data)
+        if short is not None:
+            return None, f"a polygon ring of {short} distinct point(s); a ring needs at least 3"
+        return None, f"unreadable geometry ({_short(err)})"
+
+
+def _layer_problems(geoms: np.ndarray, crs: pyproj.CRS) -> dict[int, str]:
+    """The first problem of every feature at fault, by position in `geoms`.
+
+    Bad coordinates (:func:`_coordinate_problems`) come before polygon
+    rings of fewer than 3 distinct points (:func:`_short_rings`).
+    """
+    present = np.flatnonzero([g is not None for g in geoms])
+    if not present.size:
+        return {}
+    sub = geoms[present]
+    problems = {int(present[k]): text for k, text in _coordinate_problems(sub, crs).items()}
+    for k, short in _short_rings(sub).items():
+        problems.setdefault(int(present[k]), f"a polygon ring of {short} distinct point(s); a ring needs at least 3")
+    return problems
+
+
+def _first_per_owner(owner: np.ndarray, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """For each owner with a True in `mask`: (owner, index of its first True)."""
+    hit = np.flatnonzero(mask)
+    owners, first = np.unique(owner[hit], return_index=True)
+    return owners, hit[first]
+
+
+def _coordinate_problems(geoms: np.ndarray, crs: pyproj.CRS) -> dict[int, str]:
+    """Non-finite coordinates, and coordinates no real data in `crs` can have, per feature (its first one).
+
+    Geographic CRSs: longitude within ±360° (0..360 data is accepted),
+    latitude within ±90°.  Projected CRSs: within :data:`MAX_PLANE_COORDINATE_M`
+    metres of the origin, in the CRS's own unit.
+    """
+    xy, owner = shapely.get_coordinates(geoms, return_index=True)
+    if not xy.size:
+        return {}
+    problems: dict[int, str] = {}
+    finite = np.isfinite(xy).all(axis=1)
+    for k, i in zip(*_first_per_owner(owner, ~finite)):
+        x, y = xy[i]
+        problems[int(k)] = f"coordinate ({x:g}, {y:g}) is not a finite number"
+    with np.errstate(invalid="ignore"):
+        if crs.is_geographic:
+            bad = finite & ((np.abs(xy[:, 0]) > _MAX_LON_DEG) | (np.abs(xy[:, 1]) > _MAX_LAT_DEG))
+            text = (f"lies outside longitude ±{_MAX_LON_DEG:g}° / latitude ±{_MAX_LAT_DEG:g}° of {crs.name}")
+        else:
+            factor = (crs.axis_info[0].unit_conversion_factor if crs.axis_info else 1.0) or 1.0
+            bad = finite & (np.abs(xy).max(axis=1) * factor > MAX_PLANE_COORDINATE_M)
+            text = f"lies more than {MAX_PLANE_COORDINATE_M / 1000:,.0f} km from the origin of {crs.name}"
+    for k, i in zip(*_first_per_owner(owner, bad)):
+        x, y = xy[i]
+        problems.setdefault(int(k), f"coordinate ({x:g}, {y:g}) {text}")
+    return problems
+
+
+def _short_rings(geoms: np.ndarray) -> dict[int, int]:
+    """Features with a polygon ring of 1 or 2 distinct points: {position: distinct points of its first such ring}."""
+    parts, part_owner = shapely.get_parts(geoms, return_index=True)
+    polygon = shapely.get_type_id(parts) == 3  # 3: Polygon (shapely.GeometryType.POLYGON)
+    if not polygon.any():
+        return {}
+    rings, ring_part = shapely.get_rings(parts[polygon], return_index=True)
+    ring_owner = part_owner[polygon][ring_part]
+    xy, ring_of = shapely.get_coordinates(rings, return_index=True)
+    if not xy.size:
+        return {}
+    order = np.lexsort((xy[:, 1], xy[:, 0], ring_of))
+    r, x, y = ring_of[order], xy[order, 0], xy[order, 1]
+    new = np.ones(len(r), dtype=bool)
+    new[1:] = (r[1:] != r[:-1]) | (x[1:] != x[:-1]) | (y[1:] != y[:-1])
+    distinct = np.bincount(r[new], minlength=len(rings))
+    short = np.flatnonzero((distinct > 0) & (distinct < 3))
+    out: dict[int, int] = {}
+    for ring in short:  # ascending ring order: a feature's first short ring comes first
+        out.setdefault(int(ring_owner[ring]), int(distinct[ring]))
+    return out
+
+
+def _fits_type(geom_type: str, kind: str) -> bool:
     if kind == "polygon":
-        return geom.geom_type in _POLYGONAL
+        return geom_type in _POLYGONAL
     if kind == "point":
-        return geom.geom_type in _PUNCTUAL
-    return geom.geom_type in _POLYGONAL or geom.geom_type in _PUNCTUAL
+        return geom_type in _PUNCTUAL
+    return geom_type in _POLYGONAL or geom_type in _PUNCTUAL
 
 
 def _kind_of(kind: str, geoms) -> str:
@@ -485,33 +614,6 @@ def _kind_of(kind: str, geoms) -> str:
     if points == len(geoms):
         return "point"
     return "polygon" if points == 0 else "mixed"
-
-
-def _geometry(geometry, crs: pyproj.CRS, source: str, label: str):
-    """A feature's shapely geometry (None when it has none); malformed ones are refused, naming the feature.
-
-    Refused: a polygon ring of fewer than 3 distinct points, coordinates that
-    are not finite numbers, and coordinates out of range for `crs`
-    (:func:`_check_coordinates`).
-    """
-    if geometry is None:
-        return None
-    data = getattr(geometry, "__geo_interface__", geometry)
-    try:
-        geom = shape(data)
-    except (ValueError, TypeError, AttributeError, KeyError, shapely.errors.GEOSException) as err:
-        short = _short_ring(data)
-        if short is not None:
-            raise LayerError(f"{source}: feature {label}: a polygon ring of {short} distinct point(s); "
-                             "a ring needs at least 3") from err
-        raise LayerError(f"{source}: feature {label}: unreadable geometry ({_short(err)})") from err
-    _check_coordinates(geom, crs, source, label)
-    if geom.geom_type in _POLYGONAL or geom.geom_type == "GeometryCollection":
-        short = _fewest_ring_points(geom)
-        if short is not None:
-            raise LayerError(f"{source}: feature {label}: a polygon ring of {short} distinct point(s); "
-                             "a ring needs at least 3")
-    return geom
 
 
 def _short_ring(data) -> int | None:
@@ -534,51 +636,6 @@ def _short_ring(data) -> int | None:
             if 0 < distinct < 3:
                 return distinct
     return None
-
-
-def _fewest_ring_points(geom) -> int | None:
-    """Like :func:`_short_ring`, for a shapely geometry (vectorised over its rings)."""
-    parts = shapely.get_parts(geom)
-    polygons = parts[shapely.get_type_id(parts) == 3]  # 3: Polygon (shapely.GeometryType.POLYGON)
-    if not polygons.size:
-        return None
-    rings = shapely.get_rings(polygons)
-    coords, which = shapely.get_coordinates(rings, return_index=True)
-    if not coords.size:
-        return None
-    distinct = np.unique(np.column_stack([which, coords]), axis=0)
-    per_ring = np.bincount(distinct[:, 0].astype(int), minlength=len(rings))
-    short = per_ring[(per_ring > 0) & (per_ring < 3)]
-    return int(short[0]) if short.size else None
-
-
-def _check_coordinates(geom, crs: pyproj.CRS, source: str, label: str) -> None:
-    """Refuse non-finite coordinates, and coordinates no real data in `crs` can have.
-
-    Geographic CRSs: longitude within ±360° (0..360 data is accepted),
-    latitude within ±90°.  Projected CRSs: within :data:`MAX_PLANE_COORDINATE_M`
-    metres of the origin, in the CRS's own unit.
-    """
-    xy = shapely.get_coordinates(geom)
-    if not xy.size:
-        return
-    finite = np.isfinite(xy).all(axis=1)
-    if not finite.all():
-        x, y = xy[~finite][0]
-        raise LayerError(f"{source}: feature {label}: coordinate ({x:g}, {y:g}) is not a finite number")
-    if crs.is_geographic:
-        bad = (np.abs(xy[:, 0]) > _MAX_LON_DEG) | (np.abs(xy[:, 1]) > _MAX_LAT_DEG)
-        if bad.any():
-            x, y = xy[bad][0]
-            raise LayerError(f"{source}: feature {label}: coordinate ({x:g}, {y:g}) lies outside longitude "
-                             f"±{_MAX_LON_DEG:g}° / latitude ±{_MAX_LAT_DEG:g}° of {crs.name}")
-        return
-    factor = (crs.axis_info[0].unit_conversion_factor if crs.axis_info else 1.0) or 1.0
-    bad = np.abs(xy).max(axis=1) * factor > MAX_PLANE_COORDINATE_M
-    if bad.any():
-        x, y = xy[bad][0]
-        raise LayerError(f"{source}: feature {label}: coordinate ({x:g}, {y:g}) lies more than "
-                         f"{MAX_PLANE_COORDINATE_M / 1000:,.0f} km from the origin of {crs.name}")
 
 
 def _check_duplicates(source: str, ids: list[str], id_field: str | None, allowed: bool) -> None:

@@ -22,10 +22,11 @@ from .engine import DEFAULT_CHUNK, hit_or_miss
 from .estimate import AreaEstimate, area_precision
 from .exact import at_least, intersection_areas, multiplicity_areas, planar_area
 from .intervals import check_confidence
+from .parallel import check_workers, map_ordered
 from .project import ProjectedLayer, transform_geometries, transformer
 from .errors import OptionError
 from .runinfo import RunInfo
-from .samplers import Box, SamplerFactory, make_sampler, sampler_name
+from .samplers import Box, SamplerFactory, make_sampler, sampler_name, check_sampler
 from .seeds import child_seed, job_root, make_seed
 from .stopping import StopRule, Stopper
 
@@ -146,6 +147,7 @@ def estimate_overlaps(
     exact: bool = True,
     profile: bool = True,
     exact_time_limit_s: float = 10.0,
+    workers: int | None = 1,
 ) -> OverlapReport:
     """Estimate every pairwise overlap and (for one layer) the multiplicity profile.
 
@@ -168,6 +170,9 @@ def estimate_overlaps(
         Estimate the area covered by exactly / at least k zones.
     exact_time_limit_s : float
         Seconds allowed for the exact profile; beyond, its status is "timed-out".
+    workers : int or None
+        Worker processes pairs (and the profile) are shared among (None: every usable core); the
+        rows are identical, bit for bit, for any number (:func:`~areamc.parallel.map_ordered`).
 
     Returns
     -------
@@ -176,8 +181,10 @@ def estimate_overlaps(
     """
     stop = stop or StopRule()
     confidence = check_confidence(confidence)
+    check_sampler(sampler, "overlap")
     if not 0.0 <= min_share <= 1.0:
         raise OptionError(f"{{param}}: must lie in [0, 1], got {min_share!r}", param="min_share")
+    workers = check_workers(workers)
     root = make_seed(seed)
     streams = job_root(root, "overlap")
     other = a if b is None else b
@@ -187,41 +194,79 @@ def estimate_overlaps(
     exact_pairs = intersection_areas(a.planar[pairs[0]], other.planar[pairs[1]]) if exact and pairs.size else None
     shapely.prepare(a.planar)
     shapely.prepare(other.planar)
-    rows = []
-    kept = []
-    for n, (i, j) in enumerate(pairs.T):
-        ga, gb = a.planar[i], other.planar[j]
-        box = Box.of(ga.bounds).intersection(Box.of(gb.bounds))
-        if box is None:
-            continue
-        run = hit_or_miss(
-            make_sampler(sampler, child_seed(streams, _PAIR_STREAM, int(i), int(j)), box),
-            lambda x, y, ga=ga, gb=gb: shapely.contains_xy(ga, x, y) & shapely.contains_xy(gb, x, y),
-            Stopper(stop, precision=area_precision(box.area, confidence)),
-            chunk=chunk,
-        )
-        est = run.estimate(0, confidence)
-        share_a, share_b = float(est.estimate / area_a[i]), float(est.estimate / area_b[j])
-        if max(share_a, share_b) < min_share:
-            continue
-        planar = float(exact_pairs[n]) if exact_pairs is not None else None
-        z = est.deviation(planar) if planar is not None else None
-        rows.append(
-            OverlapRow(
-                id_a=a.ids[i], id_b=other.ids[j], feature_index_a=a.source.indices[i],
-                feature_index_b=other.source.indices[j], estimate=est.estimate, stderr=est.stderr,
-                ci_low=est.ci_low, ci_high=est.ci_high, share_a=share_a, share_b=share_b,
-                points=est.points, hits=est.hits, box_area=est.box_area, exact_planar=planar,
-                z=z, flagged=flagged(z), stop_reason=run.reason, pilot_points=run.pilot_points,
-            )
-        )
-        kept.append((int(i), int(j)))
+    job = _OverlapJob(a, other, pairs, area_a, area_b, exact_pairs, stop, confidence, streams, sampler, chunk,
+                      min_share, exact, exact_time_limit_s)
+    with_profile = profile and b is None
+    # the profile, one estimate over every zone, goes first so that it does not run alone at the end
+    items = ([_PROFILE_ITEM] if with_profile else []) + list(range(pairs.shape[1]))
+    results = map_ordered(_overlap_item, items, workers, shared=job)
     multiplicity: tuple[MultiplicityRow, ...] = ()
     exact_profile = NOT_ASKED
-    if profile and b is None:
-        multiplicity, exact_profile = _profile(a, stop, confidence, streams, sampler, chunk, exact, exact_time_limit_s)
+    if with_profile:
+        (multiplicity, exact_profile), results = results[0], results[1:]
+    kept_pairs = [result for result in results if result is not None]
+    rows = [row for row, _ in kept_pairs]
+    kept = [pair for _, pair in kept_pairs]
     info = RunInfo("overlap", a.plane, confidence, int(root.entropy), sampler_name(sampler), stop, a.densify_m)
     return OverlapReport(tuple(rows), tuple(kept), multiplicity, int(pairs.shape[1]), info, exact_profile)
+
+
+#: The item of :func:`_overlap_item` that stands for the multiplicity profile (pairs are 0, 1, ...).
+_PROFILE_ITEM = -1
+
+
+@dataclass(frozen=True)
+class _OverlapJob:
+    """What every pair's work shares (sent once to each worker process; plane metres)."""
+
+    a: ProjectedLayer
+    other: ProjectedLayer
+    pairs: np.ndarray
+    area_a: np.ndarray
+    area_b: np.ndarray
+    exact_pairs: np.ndarray | None
+    stop: StopRule
+    confidence: float
+    streams: np.random.SeedSequence
+    sampler: str | SamplerFactory
+    chunk: int
+    min_share: float
+    exact: bool
+    exact_time_limit_s: float
+
+
+def _overlap_item(job: _OverlapJob, n: int):
+    """Pair `n`: its row and ``(i, j)``, or None when it is not reported; or, for :data:`_PROFILE_ITEM`,
+    the multiplicity profile and its exact status.  Runs in any process."""
+    if n == _PROFILE_ITEM:
+        return _profile(job.a, job.stop, job.confidence, job.streams, job.sampler, job.chunk, job.exact,
+                        job.exact_time_limit_s)
+    a, other, confidence = job.a, job.other, job.confidence
+    i, j = (int(v) for v in job.pairs[:, n])
+    ga, gb = a.planar[i], other.planar[j]
+    box = Box.of(ga.bounds).intersection(Box.of(gb.bounds))
+    if box is None:
+        return None
+    run = hit_or_miss(
+        make_sampler(job.sampler, child_seed(job.streams, _PAIR_STREAM, i, j), box),
+        lambda x, y, ga=ga, gb=gb: shapely.contains_xy(ga, x, y) & shapely.contains_xy(gb, x, y),
+        Stopper(job.stop, precision=area_precision(box.area, confidence)),
+        chunk=job.chunk,
+    )
+    est = run.estimate(0, confidence)
+    share_a, share_b = float(est.estimate / job.area_a[i]), float(est.estimate / job.area_b[j])
+    if max(share_a, share_b) < job.min_share:
+        return None
+    planar = float(job.exact_pairs[n]) if job.exact_pairs is not None else None
+    z = est.deviation(planar) if planar is not None else None
+    row = OverlapRow(
+        id_a=a.ids[i], id_b=other.ids[j], feature_index_a=a.source.indices[i],
+        feature_index_b=other.source.indices[j], estimate=est.estimate, stderr=est.stderr,
+        ci_low=est.ci_low, ci_high=est.ci_high, share_a=share_a, share_b=share_b,
+        points=est.points, hits=est.hits, box_area=est.box_area, exact_planar=planar,
+        z=z, flagged=flagged(z), stop_reason=run.reason, pilot_points=run.pilot_points,
+    )
+    return row, (i, j)
 
 
 def _profile(layer, stop, confidence, streams, sampler, chunk, exact, limit_s):

@@ -520,9 +520,7 @@ def _to_lonlat(dense: np.ndarray, layer: Layer) -> np.ndarray:
     unwraps them (and leaves other geometries as they are).
     """
     out = _transform_all(dense, transformer(layer.crs, LONLAT), layer)
-    for i, geom in enumerate(out):
-        out[i] = globe.normalize(geom, LONLAT, _feature(layer, i))
-    return out
+    return globe.normalize_many(out, LONLAT, lambda i: _feature(layer, i))
 
 
 def _to_plane(dense: np.ndarray, lonlat: np.ndarray, layer: Layer, crs: pyproj.CRS, step_m: float) -> np.ndarray:

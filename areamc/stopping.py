@@ -70,6 +70,8 @@ POINT_CAP = 200_000_000
 PILOT_SLACK = 2.0
 #: Fewest points in the final batch of a precision target.
 MIN_FINAL_POINTS = 1_000
+#: Fewest replicates in the pilot and in the final batch of a replicate sampler's precision target.
+MIN_FINAL_REPLICATES = 16
 
 #: Why a run stopped: the point budget (fixed count, or the cap) was used up;
 BUDGET = "budget"
@@ -205,10 +207,13 @@ class Stopper:
         as soon as it is True and a precision target is not used.
     clock : callable
         Seconds, for the time budget (``time.monotonic``).
+    unit : int
+        Points per step the engine counts in: 1, or a replicate's size for
+        replicate samplers (:meth:`per_replicate`); budgets are in steps.
     """
 
     def __init__(self, rule: StopRule, *, precision: Precision | None = None, decided: Decided | None = None,
-                 clock: Callable[[], float] = time.monotonic) -> None:
+                 clock: Callable[[], float] = time.monotonic, unit: int = 1) -> None:
         if rule.adaptive and decided is None and precision is None:
             raise ValueError("a precision target needs the job's precision measure")
         self.rule = rule
@@ -216,6 +221,18 @@ class Stopper:
         self._decided = decided
         self._clock = clock
         self._start = clock()
+        self.unit = int(unit)
+
+    def per_replicate(self, size: int, precision: Precision) -> "Stopper":
+        """The same rule, counted in replicates of `size` points and judged by `precision`; the clock runs on."""
+        other = Stopper(self.rule, precision=precision, decided=self._decided, clock=self._clock, unit=size)
+        other._start = self._start
+        return other
+
+    @property
+    def steps(self) -> int:
+        """The whole point budget in steps (points, or whole replicates)."""
+        return self.rule.point_budget // self.unit
 
     @property
     def two_stage(self) -> bool:
@@ -225,7 +242,7 @@ class Stopper:
     @property
     def budget(self) -> int:
         """Points the first stage may draw: the whole budget, or half the cap for a pilot."""
-        return max(self.rule.point_budget // 2, 1) if self.two_stage else self.rule.point_budget
+        return max(self.steps // 2, 1) if self.two_stage else self.steps
 
     def reason(self, sums: np.ndarray, sumsq: np.ndarray, points: int) -> str | None:
         """Why to stop after this chunk, or None to go on."""
@@ -253,8 +270,9 @@ class Stopper:
         """
         if not self.two_stage or reason == TIME:
             return None
-        room = self.rule.point_budget - points
+        room = self.steps - points
         need = max((self.rule.points_for(hw, est, points) for hw, est in self._precision(sums, sumsq, points)),
                    default=room)
-        size = int(max(1, min(max(need, MIN_FINAL_POINTS), room)))
+        least = MIN_FINAL_POINTS if self.unit == 1 else MIN_FINAL_REPLICATES
+        size = int(max(1, min(max(need, least), room)))
         return size, TARGET if reason == TARGET and need <= room else BUDGET

@@ -1,33 +1,46 @@
 """Sampling a region weighted by a density: the shared step of ``integrate`` and population coverage.
 
-Two estimators, chosen per region:
+Three estimators, chosen per region:
 
-* **Importance sampling** (when the region's density view offers a
-  :class:`~areamc.density.Proposal`): points are drawn with density
-  ``d(x)/T`` over the blocks or cells that meet the region, ``T`` their total
-  count.  The integral of ``d`` over the region is ``T x P(x in region)`` and
-  the share of the region's population in a covered set is
-  ``P(covered | in region)``: both binomial proportions, so Wilson intervals
-  (and confidence sequences) apply exactly as for areas.
-* **Uniform sampling** in the region's bounding box ``B``: scores
-  ``b = d(x) 1[x in region]`` and ``a = b 1[covered]``; the integral is
-  ``|B| mean(b)`` with a normal interval from the sample variance, and the
-  share is the ratio ``Σa / Σb`` with the delta-method variance
-  ``(Σa² (1 − 2R) + R² Σb²) / (Σb)²`` (using ``Σab = Σa²`` since the
-  covered indicator is 0 or 1; Cochran 1977, *Sampling Techniques*, §6.4).
+* **Importance sampling over units** (when the region's density view offers
+  a :class:`~areamc.density.Proposal` of blocks or cells): points are drawn
+  with density ``d(x)/T`` over the blocks or cells that meet the region,
+  ``T`` their total count.  The integral of ``d`` over the region is
+  ``T x P(x in region)`` and the share of the region's population in a
+  covered set is ``P(covered | in region)``: both binomial proportions, so
+  Wilson intervals (and confidence sequences) apply exactly as for areas.
+* **Importance sampling from a pilot grid** (``"grid-importance"``; sources
+  with no units to draw, such as expressions:
+  :func:`~areamc.density.grid_proposal`): points are drawn with density
+  ``q̃(x)/T̂``, a defensive mixture of the density's values on a grid over the
+  region's box and their mean (Hesterberg 1995, *Technometrics*
+  37:185-194), and score ``w = d/q̃``.  With ``b = w 1[x in region]`` and
+  ``a = b 1[covered]``, the integral is ``T̂ mean(b)`` and the share
+  ``Σa / Σb``, with the same variances as uniform sampling below.
+* **Uniform sampling** in the region's bounding box ``B`` (``importance``
+  False): scores ``b = d(x) 1[x in region]`` and ``a = b 1[covered]``; the
+  integral is ``|B| mean(b)`` with a normal interval from the sample
+  variance, and the share is the ratio ``Σa / Σb`` with the delta-method
+  variance ``(Σa² (1 − 2R) + R² Σb²) / (Σb)²`` (using ``Σab = Σa²`` since
+  the covered indicator is 0 or 1; Cochran 1977, *Sampling Techniques*, §6.4).
 
-The uniform estimators' normal intervals rest on the central limit theorem,
-which fails when a few points carry most of the weight (a town holding half a
-district's people in a few km²).  Each run reports its **effective number of
-points**, Kish's (1965, *Survey Sampling*) ``n_eff = (Σb)² / Σb²``: for a
-constant density it is the number of points in the region, and it falls
-towards the number of points that land where the weight sits as the weight
-concentrates.  A sample that missed the concentration entirely cannot show
-it, so where the source knows its density exactly (blocks, rasters) the jobs
-use the expected value instead, ``n T² / (|B| ∫_R d²)`` with ``T = ∫_R d``
-(:func:`expected_effective_points`).  Below :data:`MIN_EFFECTIVE_POINTS` the
-jobs warn that the interval cannot be trusted.  Importance sampling draws in
-proportion to the weight, so its points are all effective.
+The scored (uniform and grid) estimators' normal intervals rest on the
+central limit theorem, which fails when a few points carry most of the weight
+(a town holding half a district's people in a few km²).  Each run reports
+its **effective number of points**, Kish's (1965, *Survey Sampling*)
+``n_eff = (Σb)² / Σb²``: for a constant score it is the number of points in
+the region, and it falls towards the number of points that land where the
+weight sits as the weight concentrates; and the **largest weight share**
+``max b / Σb``, the share of the total one point carries (the diagnostic of
+Chatterjee & Diaconis 2018, *Ann. Appl. Probab.* 28:1099-1135 [memory]).
+A uniform sample that missed the concentration entirely cannot show it, so
+where the source knows its density exactly (blocks, rasters) the jobs use
+the expected value instead, ``n T² / (|B| ∫_R d²)`` with ``T = ∫_R d``
+(:func:`expected_effective_points`).  Below :data:`MIN_EFFECTIVE_POINTS`, or
+with one point above :data:`MAX_WEIGHT_SHARE` of the total, the jobs warn
+that the interval cannot be trusted (:func:`concentration`).  Importance
+sampling over units draws in proportion to the weight, so its points are
+all effective; a pilot grid draws nearly so where the grid resolves the density.
 """
 
 from __future__ import annotations
@@ -39,7 +52,7 @@ from typing import Callable
 
 import numpy as np
 
-from .density import DensityView
+from .density import DensityView, grid_proposal
 from .engine import DEFAULT_CHUNK, accumulate
 from .errors import AreamcWarning, OptionError
 from .estimate import AreaEstimate, TotalEstimate, mean_estimate
@@ -53,24 +66,34 @@ __all__ = [
     "WeightedRun",
     "weighted_run",
     "check_weighted_rule",
+    "Concentration",
+    "concentration",
     "concentration_warning",
     "expected_effective_points",
     "effective_points",
     "IMPORTANCE",
+    "GRID",
     "UNIFORM",
     "NONE",
     "TOTAL",
     "SHARES",
     "MIN_EFFECTIVE_POINTS",
+    "MAX_WEIGHT_SHARE",
 ]
 
 IMPORTANCE = "importance"
+#: Importance sampling from a pilot grid of density values (:func:`~areamc.density.grid_proposal`).
+GRID = "grid-importance"
 UNIFORM = "uniform"
 #: Method of a region with no density near it.
 NONE = "none"
-#: Fewest effective points (Kish 1965) for which a uniform run's normal interval is trusted without a warning:
-#: about the number of points that must land where most of the weight sits.
+#: Fewest effective points (Kish 1965) for which a scored (uniform or grid) run's normal interval is
+#: trusted without a warning: about the number of points that must land where most of the weight sits.
 MIN_EFFECTIVE_POINTS = 100
+#: Largest share of a scored run's in-region total one point may carry without a warning.  Since
+#: ``n_eff ≤ (Σb / max b)²``, a share above ``1/√100`` implies fewer than 100 effective points in the
+#: sample; for uniform runs judged by the expected ``n_eff`` it also catches a sample that met the weight.
+MAX_WEIGHT_SHARE = 0.1
 #: What a precision target applies to: the total (column 0), or the shares (columns 1..).
 TOTAL = "total"
 SHARES = "shares"
@@ -82,8 +105,11 @@ class WeightedRun:
 
     Column 0 is "in the region"; columns 1.. are the covered sets.  With
     ``method == "importance"`` the sums are hit counts and `scale` is the
-    proposal's total count ``T``; with ``"uniform"`` they are sums of density
-    scores and `scale` is the box area (m²).
+    proposal's total count ``T``; with ``"grid-importance"`` they are sums of
+    scores ``d/q̃`` and `scale` is the pilot grid's total ``T̂`` (counts); with
+    ``"uniform"`` they are sums of density scores and `scale` is the box area (m²).
+    `largest_weight_share` is the largest in-region score over their sum
+    (``1/hits`` for hit counts; 0 when no weight was met), over the points behind the sums.
     """
 
     method: str
@@ -93,6 +119,7 @@ class WeightedRun:
     sumsq: np.ndarray
     reason: str = "budget"
     pilot_points: int = 0
+    largest_weight_share: float = 0.0
 
     def total(self, confidence: float) -> AreaEstimate | TotalEstimate:
         """The integral of the density over the region (counts, e.g. persons)."""
@@ -102,7 +129,7 @@ class WeightedRun:
 
     @property
     def effective_points(self) -> float:
-        """Kish's effective number of points ``(Σb)² / Σb²`` of the in-region weights (uniform runs).
+        """Kish's effective number of points ``(Σb)² / Σb²`` of the in-region weights (uniform and grid runs).
 
         For importance runs every point is drawn in proportion to the weight,
         so the in-region hit count is returned.  0 when no weight was met.
@@ -171,19 +198,66 @@ def effective_points(run: "WeightedRun", view: DensityView, total: float | None)
     return run.effective_points
 
 
-def concentration_warning(job: str, concentrated: list[tuple[str, float, int]]) -> None:
-    """Warn once about regions whose uniform run had fewer than :data:`MIN_EFFECTIVE_POINTS` effective points.
+@dataclass(frozen=True)
+class Concentration:
+    """A region whose scored run is too concentrated for its normal interval (see :func:`concentration`).
 
-    `concentrated` holds (region id, effective points, points) for each such region.
+    Attributes
+    ----------
+    region : str
+        The region's id.
+    method : str
+        "uniform" or "grid-importance".
+    effective_points : float
+        Kish's effective points (expected for uniform runs of blocks and rasters).
+    points : int
+    largest_weight_share : float
+        The largest share of the region's total carried by one point (0..1).
+    """
+
+    region: str
+    method: str
+    effective_points: float
+    points: int
+    largest_weight_share: float
+
+
+def concentration(region: str, run: "WeightedRun | None", effective: float) -> Concentration | None:
+    """The record of a region whose interval cannot be trusted, or None.
+
+    A scored run (uniform or grid) is flagged with fewer than
+    :data:`MIN_EFFECTIVE_POINTS` effective points (`effective`, from
+    :func:`effective_points`), or when one point carries more than
+    :data:`MAX_WEIGHT_SHARE` of the in-region total.  Hit-count importance
+    runs are never flagged: their Wilson interval holds for any count.
+    """
+    if run is None or run.method == IMPORTANCE:
+        return None
+    if effective < MIN_EFFECTIVE_POINTS or run.largest_weight_share > MAX_WEIGHT_SHARE:
+        return Concentration(region, run.method, float(effective), int(run.points), float(run.largest_weight_share))
+    return None
+
+
+def concentration_warning(job: str, concentrated: list[Concentration]) -> None:
+    """Warn once about the regions whose weighted interval cannot be trusted (each from :func:`concentration`).
+
+    The text names up to 3 regions with their effective points and largest
+    weight share, and says what to do: importance sampling where plain
+    sampling was asked for, more points (which also refine the pilot grid).
     """
     if not concentrated:
         return
-    shown = "; ".join(f"{rid}: {eff:,.0f} effective of {n:,} points" for rid, eff, n in concentrated[:3])
+    shown = "; ".join(f"{c.region}: {c.effective_points:,.0f} effective of {c.points:,} points, "
+                      f"one point carrying {c.largest_weight_share:.1%} of the total" for c in concentrated[:3])
     more = f"; and {len(concentrated) - 3} more" if len(concentrated) > 3 else ""
+    uniform = any(c.method == UNIFORM for c in concentrated)
+    remedy = ("sample by importance (the default; plain sampling was asked for) or raise {points}" if uniform
+              else "raise {points} (a larger budget also refines the pilot grid)")
     warnings.warn(AreamcWarning(
         f"{job}: the density's weight is too concentrated for the normal interval to be trusted in "
-        f"{len(concentrated)} region(s) ({shown}{more}; fewer than {MIN_EFFECTIVE_POINTS:,} effective points, "
-        "Kish 1965); sample by importance (blocks, rasters), or raise {points}", param="points"), stacklevel=3)
+        f"{len(concentrated)} region(s) ({shown}{more}; the interval needs at least {MIN_EFFECTIVE_POINTS:,} "
+        f"effective points, Kish 1965, and no point above {MAX_WEIGHT_SHARE:.0%} of the total); {remedy}",
+        param="points"), stacklevel=3)
 
 
 def check_weighted_rule(stop: StopRule) -> None:
@@ -216,8 +290,9 @@ def weighted_run(
         ``classify(x, y)`` returns bools ``(n, m)``: column 0 "in the region",
         the rest covered sets.
     seed : SeedSequence
-        This region's stream: the importance sampler draws from it, the
-        uniform sampler from its child ``(2,)``.
+        This region's stream: the importance samplers (units or pilot grid)
+        draw from it, the uniform sampler from its child ``(2,)``.  The pilot
+        grid draws no random numbers.
     stop : StopRule
         Points, or a precision target on the `target` (``"total"`` or ``"shares"``).
     claim : float, optional
@@ -225,30 +300,62 @@ def weighted_run(
     sampler : str or sampler class
         See :func:`~areamc.samplers.make_sampler`.
     importance : bool
-        Use the view's importance sampler when it has one.
+        Sample by importance: over the view's units (blocks, cells) where it
+        offers them, else from a pilot grid of its density values
+        (:func:`~areamc.density.grid_proposal`, sized by ``stop.point_budget``).
+        False: plain uniform sampling in the region's bounding box.
 
     Returns
     -------
     WeightedRun, or None when the density is zero on every unit near the region.
     """
     proposal = view.proposal() if importance else None
-    if proposal is not None and proposal.total <= 0:
+    if importance and proposal is None:
+        proposal = grid_proposal(view, stop.point_budget)  # no units to draw: a pilot grid of density values
+    if proposal is not None and proposal.weight is None and proposal.total <= 0:
         return None  # the source has no positive count near the region: density 0 here
-    if proposal is not None:
+    largest = _Largest()
+    if proposal is not None and proposal.weight is None:
         points = make_sampler(sampler, seed, proposal)
         scale, method = proposal.total, IMPORTANCE
         evaluate = classify
     else:
-        box = Box.of(view.region.bounds)
-        points = make_sampler(sampler, child_seed(seed, 2), box)
+        if proposal is not None:
+            points = make_sampler(sampler, seed, proposal)
+            score, scale, method = proposal.weight, proposal.total, GRID
+        else:
+            box = Box.of(view.region.bounds)
+            points = make_sampler(sampler, child_seed(seed, 2), box)
+            score, scale, method = view.density, box.area, UNIFORM
 
         def evaluate(x, y):
             flags = np.asarray(classify(x, y), dtype=bool)
-            d = view.density(x, y)
-            return flags * d[:, None]
+            return largest.see(flags * np.asarray(score(x, y), float)[:, None])
 
-        scale, method = box.area, UNIFORM
     decided = claim_decided(claim, confidence) if claim is not None and method == IMPORTANCE else None
     stopper = Stopper(stop, precision=_precision(method, scale, target, confidence), decided=decided)
     run = accumulate(points.random, evaluate, stopper, chunk=chunk)
-    return WeightedRun(method, run.points, scale, run.sums, run.sumsq, run.reason, run.pilot_points)
+    in_region = float(run.sums[0])
+    if method == IMPORTANCE:
+        share = 1.0 / in_region if in_region > 0 else 0.0
+    else:
+        share = largest.since(run.pilot_points) / in_region if in_region > 0 else 0.0
+    return WeightedRun(method, run.points, scale, run.sums, run.sumsq, run.reason, run.pilot_points, share)
+
+
+class _Largest:
+    """The largest in-region score of each evaluated chunk, by stream position (a maximum: chunking cannot change it)."""
+
+    def __init__(self) -> None:
+        self.seen = 0
+        self.chunks: list[tuple[int, float]] = []
+
+    def see(self, scores: np.ndarray) -> np.ndarray:
+        if len(scores):
+            self.chunks.append((self.seen, float(scores[:, 0].max())))
+        self.seen += len(scores)
+        return scores
+
+    def since(self, start: int) -> float:
+        """The largest score among points at or after evaluation position `start` (the final batch after a pilot)."""
+        return max((m for pos, m in self.chunks if pos >= start), default=0.0)

@@ -1,6 +1,6 @@
 """Reprojecting a layer: one PROJ call per feature against one call for the whole layer.
 
-Run:  .venv/bin/python benchmarks/transform_layer.py
+Run:  .venv/bin/python benchmarks/transform_layer.py [--quick]
 
 For two layers, the sample blocks (sample_data/vale_county.gpkg, layer "blocks") and
 an invented layer of 20,000 small lon/lat polygons, this times side by side in one
@@ -22,20 +22,16 @@ layer, resolved once before timing.  For scale it also prints the time of a whol
 
 from __future__ import annotations
 
-import sys
 import time
 from functools import partial
-from pathlib import Path
 
 import numpy as np
 import shapely
 
-ROOT = Path(__file__).resolve().parents[1]
-sys.path.insert(0, str(ROOT))
-
-from areamc.errors import CRSError  # noqa: E402
-from areamc.load import layer_from_geometries, read_layer  # noqa: E402
-from areamc.project import (  # noqa: E402
+from common import ROOT, fmt_s, main_for, record
+from areamc.errors import CRSError
+from areamc.load import layer_from_geometries, read_layer
+from areamc.project import (
     DEFAULT_DENSIFY_M,
     LONLAT,
     densify,
@@ -44,7 +40,7 @@ from areamc.project import (  # noqa: E402
     transformer,
 )
 
-REPEATS = 5
+REPEATS = 3
 N_SMALL = 20_000
 
 
@@ -85,14 +81,14 @@ def small_polygons(n: int, seed: int = 20261202):
     return layer_from_geometries(list(shapely.polygons(rings)), "EPSG:4326", name="invented")
 
 
-def run(layer, method, to_lonlat, to_plane):
+def run_layer(layer, method, to_lonlat, to_plane):
     dense = densify(layer.geometries, layer.crs, DEFAULT_DENSIFY_M)
     return method(dense, to_lonlat, layer), method(dense, to_plane, layer)
 
 
-def best(fn) -> tuple[float, object]:
+def best(fn, repeats: int = REPEATS) -> tuple[float, object]:
     times, result = [], None
-    for _ in range(REPEATS):
+    for _ in range(repeats):
         start = time.perf_counter()
         result = fn()
         times.append(time.perf_counter() - start)
@@ -107,25 +103,41 @@ def identical(a, b) -> bool:
     )
 
 
-def main() -> None:
+def run(quick: bool = False) -> dict:
+    """Time both ways on the two layers, print a line per layer, and return the record of the invented layer."""
+    n_small = 5_000 if quick else N_SMALL
+    repeats = 3 if quick else REPEATS
     layers = [
         ("sample blocks", read_layer(ROOT / "sample_data" / "vale_county.gpkg", layer="blocks")),
-        (f"{N_SMALL:,} invented polygons", small_polygons(N_SMALL)),
+        (f"{n_small:,} invented polygons", small_polygons(n_small)),
     ]
-    print(f"densify every {DEFAULT_DENSIFY_M:g} m, then transform to lon/lat and to the plane; best of {REPEATS}")
+    print(f"densify every {DEFAULT_DENSIFY_M:g} m, then transform to lon/lat and to the plane; best of {repeats}")
     print(f"{'layer':<26} {'features':>8} {'vertices':>9} {'per feature s':>14} {'one call s':>11} {'ratio':>6}  identical")
+    last = None
     for name, layer in layers:
         plane = project_layer(layer).plane
         to_lonlat, to_plane = transformer(layer.crs, LONLAT), transformer(layer.crs, plane.crs)
-        t_loop, loop = best(partial(run, layer, per_feature, to_lonlat, to_plane))
-        t_one, one = best(partial(run, layer, one_call, to_lonlat, to_plane))
+        t_loop, loop = best(partial(run_layer, layer, per_feature, to_lonlat, to_plane), repeats)
+        t_one, one = best(partial(run_layer, layer, one_call, to_lonlat, to_plane), repeats)
         vertices = int(shapely.get_num_coordinates(loop[1]).sum())
+        same = identical(loop, one)
         print(f"{name:<26} {len(layer):>8,} {vertices:>9,} {t_loop:>14.4f} {t_one:>11.4f} "
-              f"{t_loop / t_one:>6.2f}  {identical(loop, one)}")
+              f"{t_loop / t_one:>6.2f}  {same}")
+        last = (name, len(layer), t_loop, t_one, same)
     for name, layer in layers:
-        t_all, _ = best(partial(project_layer, layer))
+        t_all, _ = best(partial(project_layer, layer), repeats)
         print(f"whole project_layer, {name}: {t_all:.4f} s")
+    name, count, t_loop, t_one, same = last
+    return record(
+        "reprojection", f"reproject {count:,} invented polygons: one call against a loop per feature",
+        ".venv/bin/python benchmarks/transform_layer.py" + (" --quick" if quick else ""),
+        areamc_s=t_one, baseline_s=t_loop, ratio=t_loop / t_one, ratio_of="per-feature time / one-call time",
+        target="identical coordinates", met=same,
+        areamc_text=f"one shapely.transform call: {fmt_s(t_one)}; bit-identical: {same}",
+        baseline_text=f"per-feature loop (areamc's earlier code): {fmt_s(t_loop)}",
+        notes=["the baseline here is areamc's own earlier code, not an exact method"],
+    )
 
 
 if __name__ == "__main__":
-    main()
+    main_for(run)

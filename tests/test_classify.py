@@ -109,6 +109,19 @@ def test_grid_index__other_random_arrangements():
         np.testing.assert_array_equal(GridIndex(zones, BOX).counts(x, y), brute_counts(zones, x, y))
 
 
+def test_grid_index__points_outside_the_box_are_answered_exactly(zones):
+    """Points past the box's edges (where zones reach) are counted like any other, by an STRtree query."""
+    rng = np.random.default_rng(9)
+    w, h = BOX.xmax - BOX.xmin, BOX.ymax - BOX.ymin
+    x = BOX.xmin + rng.uniform(-0.3, 1.3, 20_000) * w
+    y = BOX.ymin + rng.uniform(-0.3, 1.3, 20_000) * h
+    index = GridIndex(zones, BOX)
+    np.testing.assert_array_equal(index.counts(x, y), brute_counts(zones, x, y))
+    point, zone = index.pairs(x, y)
+    assert np.bincount(point, minlength=len(x)).tolist() == brute_counts(zones, x, y).tolist()
+    assert shapely.contains_xy(np.asarray(zones, dtype=object)[zone], x[point], y[point]).all()
+
+
 def test_grid_index__no_zones_counts_zero():
     x, y = random_points(3, 1000)
     index = GridIndex([], BOX)
@@ -122,7 +135,9 @@ def test_grid_index__empty_point_arrays():
 
 def test_grid_size__within_its_documented_range(zones):
     g = _grid_size(np.asarray(zones, dtype=object), BOX)
-    assert 4 <= g <= 256
+    assert 4 <= g <= 2048
+    # never more cells than the points it will count
+    assert _grid_size(np.asarray(zones, dtype=object), BOX, points=400) ** 2 <= 400
     # finer grids for more boundary: 100 disks (940 km of edge) need more cells than one box
     # (170 km of edge)
     many = [Point(BOX.xmin + 400 * i, BOX.ymin + 15_000).buffer(1500) for i in range(100)]

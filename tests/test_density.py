@@ -42,10 +42,13 @@ from shapely.geometry import Polygon, box, mapping
 from conftest import overlay_total, write_raster
 
 from areamc.density import (
+    GRID_DEFENSIVE,
     BlockDensity,
     ExpressionDensity,
     RasterDensity,
     block_counts,
+    grid_proposal,
+    grid_side,
     build_density,
     guess_density_kind,
     read_density,
@@ -854,3 +857,86 @@ def test_expression__constant_arithmetic_errors_are_non_finite_densities(text):
     source = ExpressionDensity(text, region.plane)
     with pytest.raises(InputError, match="non-negative and finite"):
         source.density(np.array([100.0]), np.array([5.0]))
+
+
+# --- the pilot grid (densities without units) ------------------------------------------------------
+
+
+@pytest.mark.parametrize("points, side", [(2, 64), (2_000, 64), (100_000, 64), (400_000, 128),
+                                          (1_000_000, 256), (10**8, 256)])
+def test_grid_side__rule(points, side):
+    # the documented rule (docs/methods.md §16a): √n / 4 rounded to a power of two, within 64..256
+    assert grid_side(points) == side
+
+
+def test_grid_proposal__constant_density_draws_uniformly_with_equal_scores():
+    # a constant density over a rectangle: every probe equal, so q̃ = (1 − α) c + α c = c; scores d / q̃ = 1
+    # and the total T̂ = c |B| (calculus: the integral of a constant); points uniform in the box (binomial band)
+    (region,) = on_plane([box(0, 0, 6000, 4000)])
+    view = ExpressionDensity("2.5e-4", region.plane).for_region(region.planar[0])
+    proposal = grid_proposal(view, 10_000)
+    xmin, ymin, xmax, ymax = region.planar[0].bounds
+    assert proposal.total == pytest.approx(2.5e-4 * (xmax - xmin) * (ymax - ymin), rel=1e-12)
+    u = np.random.default_rng(4).random((20_000, 3))
+    x, y = proposal.draw(u)
+    assert (x >= xmin).all() and (x < xmax).all() and (y >= ymin).all() and (y < ymax).all()
+    np.testing.assert_allclose(proposal.weight(x, y), 1.0, rtol=1e-12)
+    west = int(np.sum(x < (xmin + xmax) / 2))
+    low, high = stats.binom.ppf([0.0005, 0.9995], 20_000, 0.5)
+    assert low <= west <= high
+
+
+def test_grid_proposal__cells_away_from_the_region_keep_only_the_defensive_share():
+    # an L-shaped region holding 7/16 of its box: cells far from it get α ḡ alone, so far more than 7/16 of
+    # the points land in the region (a one-sided binomial test at 1e-6 against 7/16; scipy.stats)
+    geom = Polygon([(0, 0), (6000, 0), (6000, 1500), (1500, 1500), (1500, 6000), (0, 6000)])
+    (region,) = on_plane([geom])
+    view = ExpressionDensity("2.5e-4", region.plane).for_region(region.planar[0])
+    proposal = grid_proposal(view, 10_000)
+    xmin, ymin, xmax, ymax = region.planar[0].bounds
+    inside = float(shapely.area(region.planar[0])) / ((xmax - xmin) * (ymax - ymin))
+    x, y = proposal.draw(np.random.default_rng(9).random((20_000, 3)))
+    hits = int(np.sum(shapely.contains_xy(region.planar[0], x, y)))
+    assert hits > stats.binom.ppf(1 - 1e-6, 20_000, inside), (hits / 20_000, inside)
+
+
+def test_grid_proposal__pilot_blind_to_the_density_samples_the_box_uniformly():
+    # a density zero at every probe (a 10 m disk between probes): the pilot is flat, q̃ = 1 per m², T̂ = |B|,
+    # and a point's score is its density: plain uniform sampling of the box (Proposal docstring)
+    (region,) = on_plane([box(0, 0, 64_000, 64_000)])  # cells of 1000 m, probes at 250, 500, 750 m
+    view = ExpressionDensity("where(hypot(x - 100, y - 100) < 10, 1.0, 0.0)", region.plane).for_region(region.planar[0])
+    proposal = grid_proposal(view, 2_000)
+    assert proposal.total == pytest.approx(64_000.0**2, rel=1e-12)
+    u = np.random.default_rng(5).random((5_000, 3))
+    x, y = proposal.draw(u)
+    np.testing.assert_array_equal(proposal.weight(x, y), view.density(x, y))
+    # uniform in the box: the west half holds half the points (binomial, 99.9% band)
+    west = int(np.sum(x < 32_000))
+    low, high = stats.binom.ppf([0.0005, 0.9995], 5_000, 0.5)
+    assert low <= west <= high
+
+
+def test_grid_proposal__defensive_mixture_bounds_every_score():
+    # Hesterberg (1995, Technometrics 37:185-194): with q̃ ≥ α ḡ everywhere, T̂ d / q̃ ≤ |B| d / α,
+    # i.e. no point weighs more than 1/α times its uniform-sampling score, even where the pilot is poor
+    (region,) = on_plane([box(0, 0, 40_000, 40_000)])
+    text = "1e-3 * exp(-((x - 20013)**2 + (y - 7011)**2) / (2 * 40.0**2)) + 1e-6"  # narrower than a cell
+    view = ExpressionDensity(text, region.plane).for_region(region.planar[0])
+    proposal = grid_proposal(view, 2_000)
+    u = np.random.default_rng(6).random((200_000, 3))
+    x, y = proposal.draw(u)
+    scores = proposal.total * proposal.weight(x, y)
+    bound = 40_000.0**2 * view.density(x, y) / GRID_DEFENSIVE
+    assert (scores <= bound * (1 + 1e-12)).all()
+
+
+def test_grid_proposal__is_deterministic_and_checks_its_share():
+    (region,) = on_plane([box(0, 0, 5_000, 3_000)])
+    view = ExpressionDensity("1e-4 * (1 + sin(x / 700.0) ** 2)", region.plane).for_region(region.planar[0])
+    u = np.random.default_rng(7).random((1_000, 3))
+    a, b = grid_proposal(view, 50_000), grid_proposal(view, 50_000)
+    np.testing.assert_array_equal(a.draw(u), b.draw(u))
+    assert a.total == b.total
+    for bad in (0.0, -0.1, 1.5):
+        with pytest.raises(OptionError, match="defensive"):
+            grid_proposal(view, 1_000, defensive=bad)

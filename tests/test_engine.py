@@ -168,7 +168,7 @@ def test_accumulate__float_scores_sums_and_squares_match_numpy(chunk):
 
     seen = []
     run = accumulate(UniformSampler(make_seed(21), UNIT).random, score, fixed(n), chunk=chunk,
-                     progress=lambda drawn, points, sums: seen.append((drawn, points, sums.copy())))
+                     progress=lambda drawn, points, sums, _sq: seen.append((drawn, points, sums.copy())))
     assert isinstance(run, Sums)
     x, y = UniformSampler(make_seed(21), UNIT).random(n)
     ref = score(x, y)

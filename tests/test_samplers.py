@@ -258,7 +258,7 @@ def test_make_sampler__by_class():
     assert sampler_name(UniformSampler) == "uniform"
 
 
-@pytest.mark.parametrize("kind", ["sobol", "Uniform", "", 3, None])
+@pytest.mark.parametrize("kind", ["halton", "Uniform", "", 3, None])
 def test_make_sampler__unknown_kind(kind):
     with pytest.raises(OptionError, match=r"^sampler: unknown sampler") as info:
         make_sampler(kind, make_seed(1), UNIT)

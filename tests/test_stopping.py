@@ -189,7 +189,7 @@ def test_stopper__two_stage__final_batch_is_fresh_and_sized_by_the_pilot():
     assert stopper.two_stage and stopper.budget == 10**6 // 2
     seen = []
     run = accumulate(Stream().draw, score, stopper, chunk=chunk,
-                     progress=lambda drawn, points, sums: seen.append((drawn, points)))
+                     progress=lambda drawn, points, sums, _sq: seen.append((drawn, points)))
     # Pilot: stops at the first chunk end with c/sqrt(n) <= PILOT_SLACK * target, i.e. n >= 10 000.
     pilot = run.pilot_points
     assert pilot == 12_000
@@ -313,7 +313,7 @@ def test_hit_or_miss__adaptive__pilot_stops_at_first_chunk_meeting_target(rule):
     seen = []  # (drawn, points, hits) after every chunk
     run = hit_or_miss(
         UniformSampler(make_seed(5), box), disk, Stopper(rule, precision=area_precision(box.area, 0.95)),
-        chunk=chunk, trace_every=chunk, progress=lambda d, p, s: seen.append((d, p, int(s[0]))),
+        chunk=chunk, trace_every=chunk, progress=lambda d, est: seen.append((d, est.points, est.hits)),
     )
     est = run.estimate(0, 0.95)
     pilot = run.pilot_points

@@ -31,7 +31,7 @@ from areamc.samplers import Box, make_sampler
 from areamc.seeds import child_seed, make_seed
 from areamc.sequential import MEETS, UNDECIDED, verdict
 from areamc.stopping import StopRule
-from areamc.weighted import IMPORTANCE, SHARES, TOTAL, UNIFORM, weighted_run
+from areamc.weighted import GRID, IMPORTANCE, SHARES, TOTAL, UNIFORM, weighted_run
 
 PLANE = "+proj=laea +lat_0=47 +lon_0=10 +datum=WGS84 +units=m +no_defs"
 CONF = 0.999
@@ -195,10 +195,10 @@ def test_zero_density_and_sources_without_proposal(scene):
     empty = run(scene, 1, 1000, False, source=zero)  # plain sampling sees only zeros
     assert empty.method == UNIFORM and empty.sums[0] == 0
     assert all(math.isnan(v) for v in empty.share(1, 0.95))
-    # an expression has no importance sampler: plain sampling even when importance is asked for
+    # an expression has no units to draw: importance sampling from a pilot grid of its values
     flat = ExpressionDensity("1e-4", scene["blocks"].plane)
     r = run(scene, 2, 50_000, True, source=flat)
-    assert r.method == UNIFORM
+    assert r.method == GRID
     area_share = shapely.intersection(scene["region"], shapely.union_all(scene["zones"])).area / scene["region"].area
     share, se, low, high = r.share(1, CONF)
     assert low <= area_share <= high  # a constant density weights by area alone
@@ -207,9 +207,9 @@ def test_zero_density_and_sources_without_proposal(scene):
 
 
 def test_weighted_run__raster_without_importance_sampler_still_counts_its_density(tmp_path):
-    # Regression: a raster in a CRS that is not equal-area has no importance sampler; the run must
-    # fall back to uniform sampling, not report a zero density.  Reference: constant density x
-    # shapely area (calculus: the integral of a constant).
+    # Regression: a raster in a CRS that is not equal-area has no importance sampler over its cells; the
+    # run must fall back to the pilot grid of density values, not report a zero density.  Reference:
+    # constant density x shapely area (calculus: the integral of a constant).
     # persons per m², UTM 32N cells of 500 m
     path = write_raster(tmp_path / "utm.tif", np.full((20, 20), 1e-4), west=600_000, north=5_240_000, dx=500,
                         crs="EPSG:32632", dtype="float32")
@@ -218,10 +218,10 @@ def test_weighted_run__raster_without_importance_sampler_still_counts_its_densit
     geom = region.planar[0]
     with RasterDensity(path, region.plane, values="per-m2") as source:
         view = source.for_region(geom)
-        assert view.proposal() is None  # UTM is not equal-area: no importance sampler
+        assert view.proposal() is None  # UTM is not equal-area: no importance sampler over cells
         run = weighted_run(view, lambda x, y: shapely.contains_xy(geom, x, y)[:, None], make_seed(3),
                            stop=StopRule(points=50_000), confidence=0.95, chunk=10_000)
-    assert run is not None and run.method == UNIFORM
+    assert run is not None and run.method == GRID
     total = run.total(0.95)
     assert abs(total.estimate - 1e-4 * geom.area) <= 4 * total.stderr + 1e-9 * geom.area
 

@@ -6,6 +6,7 @@ from ..area import estimate_areas
 from ..load import read_layer
 from ..output import Column, OutputBatch, render, write_text
 from ..project import project_layer
+from ..samplers import interval_method
 from .common import (
     Screen,
     add_layer_options,
@@ -52,7 +53,7 @@ def _header(args, report, layer) -> list[str]:
         f"areamc area: {layer.path} (layer {layer.layer}, {len(layer)} features)",
         f"equal-area plane: {plane.label} ({'chosen from the data' if plane.chosen else 'as given'}; "
         f"measured area distortion {plane.distortion:.1g})",
-        f"{report.run.confidence:.4g} Wilson intervals; seed {report.run.seed_entropy}; units {args.units}",
+        f"{report.run.confidence:.4g} {interval_method(report.run.sampler)}; seed {report.run.seed_entropy}; units {args.units}",
         "",
     ]
 

@@ -15,6 +15,7 @@ from ..checks import FLAG_Z
 from ..engine import DEFAULT_CHUNK
 from ..errors import OptionError
 from ..output import FORMATS, Column, check_output_path, convert_rows, render, write_text
+from ..parallel import usable_cores
 from ..project import DEFAULT_DENSIFY_M
 from ..samplers import SAMPLERS
 from ..stopping import DEFAULT_MAX_POINTS, DEFAULT_POINTS, POINT_CAP, StopRule
@@ -34,6 +35,7 @@ __all__ = [
     "emit",
     "add_zone_options",
     "add_sampling_options",
+    "add_worker_options",
     "stop_rule",
     "run_metadata",
     "zone_layer",
@@ -55,6 +57,7 @@ FLAGS = {
     "fmt": "--format",
     "time_s": "--time-limit",
     "encoding": "--input-encoding",
+    "workers": "--workers",
 }
 _NAMES: list[dict[str, str]] = []
 
@@ -273,6 +276,13 @@ def add_sampling_options(parser: argparse.ArgumentParser, tolerance: str = "area
     parser.add_argument("--time-limit", type=positive_float, metavar="SECONDS",
                         help="stop each estimate at the first chunk end past this many seconds "
                         "(the result then depends on the machine's speed, not only on the seed)")
+
+
+def add_worker_options(parser: argparse.ArgumentParser) -> None:
+    """``--workers``: worker processes the job's estimates are shared among (parameter ``workers``)."""
+    parser.add_argument("--workers", type=positive_int, metavar="N",
+                        help=f"worker processes to share the regions, zones or pairs among (default: every usable "
+                        f"core, {usable_cores()} here); results are identical for any N")
 
 
 def stop_rule(args, *, scale: float | None = None, below: float | None = None) -> StopRule:

@@ -18,6 +18,7 @@ from .common import (
     add_output_options,
     add_plane_options,
     add_sampling_options,
+    add_worker_options,
     add_zone_options,
     check_outputs,
     density_file,
@@ -82,6 +83,7 @@ def add_parser(sub) -> None:
     add_zone_options(p)
     add_plane_options(p)
     add_sampling_options(p, tolerance="share")
+    add_worker_options(p)
     p.add_argument("--at-least", type=whole_number(1), action="append", metavar="K",
                    help="report the share covered by at least K zones; repeat for several (default 1)")
     p.add_argument("--claim", type=_claim, metavar="SHARE",
@@ -169,6 +171,7 @@ def run(args) -> int:
             exact_time_limit_s=args.exact_budget,
             density=density,
             importance=not args.no_importance,
+            workers=args.workers,
         )
     finally:
         if hasattr(density, "close"):

@@ -13,6 +13,7 @@ from .common import (
     add_output_options,
     add_plane_options,
     add_sampling_options,
+    add_worker_options,
     check_outputs,
     density_file,
     flag_line,
@@ -46,6 +47,7 @@ def add_parser(sub) -> None:
     add_density_options(p, required=True)
     add_plane_options(p)
     add_sampling_options(p, tolerance="count")
+    add_worker_options(p)
     p.add_argument("--no-exact", action="store_true", help="skip the exact areal-weighting / cell-fraction totals")
     add_output_options(p)
     p.set_defaults(run=run)
@@ -84,7 +86,7 @@ def run(args) -> int:
     try:
         report = integrate_density(projected[0], source, stop=stop, confidence=args.confidence, seed=args.seed,
                                    sampler=args.sampler, chunk=args.chunk, importance=not args.no_importance,
-                                   exact=not args.no_exact)
+                                   exact=not args.no_exact, workers=args.workers)
     finally:
         if hasattr(source, "close"):
             source.close()

@@ -11,6 +11,7 @@ from .common import (
     add_output_options,
     add_plane_options,
     add_sampling_options,
+    add_worker_options,
     add_zone_options,
     check_outputs,
     flag_line,
@@ -88,6 +89,7 @@ def add_parser(sub) -> None:
     add_zone_options(p)
     add_plane_options(p)
     add_sampling_options(p)
+    add_worker_options(p)
     p.add_argument("--min-share", type=float, default=0.0, metavar="SHARE",
                    help="omit pairs whose overlap is below this share of both zones (default 0)")
     p.add_argument("--no-exact", action="store_true", help="skip shapely's exact intersection areas")
@@ -121,6 +123,7 @@ def run(args) -> int:
         exact=not args.no_exact,
         profile=not args.no_profile,
         exact_time_limit_s=args.exact_budget,
+        workers=args.workers,
     )
     rows = [r.to_dict() for r in report.rows]
     profile = [m.to_dict() for m in report.multiplicity]
