@@ -21,6 +21,7 @@ from .engine import DEFAULT_CHUNK, HitOrMissRun, hit_or_miss
 from .estimate import AreaEstimate, area_precision
 from .exact import geodesic_area, planar_area
 from .intervals import check_confidence
+from .parallel import check_workers, map_ordered
 from .project import ProjectedLayer
 from .runinfo import RunInfo
 from .samplers import Box, SamplerFactory, make_sampler, sampler_name
@@ -147,6 +148,7 @@ def estimate_areas(
     exact: bool = True,
     trace_every: int | None = None,
     progress: Progress | None = None,
+    workers: int | None = 1,
 ) -> AreaReport:
     """Estimate the area of every feature of a projected layer.
 
@@ -170,7 +172,12 @@ def estimate_areas(
     trace_every : int, optional
         Record running counts every this many points.
     progress : callable, optional
-        ``progress(feature_id, points_drawn, estimate)`` after each chunk.
+        ``progress(feature_id, points_drawn, estimate)`` after each chunk; with
+        several workers, once per feature as it finishes.
+    workers : int or None
+        Worker processes the features are shared among (None: every usable
+        core; :func:`~areamc.parallel.check_workers`).  Results are the same
+        to the last bit for any number: each feature has its own stream.
 
     Returns
     -------
@@ -179,28 +186,57 @@ def estimate_areas(
     """
     stop = stop or StopRule()
     confidence = check_confidence(confidence)
+    workers = check_workers(workers)
     root = make_seed(seed)
-    streams = job_root(root, "area")
+    job = _AreaJob(layer.planar, job_root(root, "area"), stop, confidence, sampler, chunk, trace_every,
+                   progress if workers == 1 else None, tuple(layer.ids))
+    if workers == 1:
+        runs = [_area_feature(job, i) for i in range(len(layer))]
+    else:
+        # with several workers progress comes per finished feature: its id and its final estimate
+        def done(i: int, run: HitOrMissRun) -> None:
+            if progress is not None:
+                progress(layer.ids[i], run.points + run.pilot_points, run.estimate(0, confidence))
+
+        runs = map_ordered(_area_feature, range(len(layer)), workers, shared=job, done=done)
     exact_areas = planar_area(layer.planar) if exact else None
-    rows: list[AreaRow] = []
-    traces = []
-    for i, (fid, geom) in enumerate(zip(layer.ids, layer.planar)):
-        box = Box.of(geom.bounds)
-        run = hit_or_miss(
-            make_sampler(sampler, child_seed(streams, i), box),
-            inside(geom, box, stop.points),
-            Stopper(stop, precision=area_precision(box.area, confidence)),
-            chunk=chunk,
-            trace_every=trace_every,
-            progress=None if progress is None else partial(progress, fid),
-            confidence=confidence,
-        )
-        traces.append(run.trace)
+    rows = []
+    for i, (fid, run) in enumerate(zip(layer.ids, runs)):
         planar = float(exact_areas[i]) if exact else None
         geodesic = geodesic_area(layer.lonlat[i]) if exact else None
         rows.append(_row(fid, layer.source.indices[i], run, confidence, planar, geodesic))
     info = RunInfo("area", layer.plane, confidence, int(root.entropy), sampler_name(sampler), stop, layer.densify_m)
-    return AreaReport(tuple(rows), info, tuple(traces) if trace_every else ())
+    return AreaReport(tuple(rows), info, tuple(run.trace for run in runs) if trace_every else ())
+
+
+@dataclass(frozen=True)
+class _AreaJob:
+    """What every feature's estimate needs, sent once to each worker (plane metres)."""
+
+    planar: np.ndarray
+    streams: np.random.SeedSequence
+    stop: StopRule
+    confidence: float
+    sampler: object
+    chunk: int
+    trace_every: int | None
+    progress: Progress | None
+    ids: tuple[str, ...]
+
+
+def _area_feature(job: _AreaJob, i: int) -> HitOrMissRun:
+    """Sample feature `i` in its bounding box, from the stream keyed ("area", i)."""
+    geom = job.planar[i]
+    box = Box.of(geom.bounds)
+    return hit_or_miss(
+        make_sampler(job.sampler, child_seed(job.streams, i), box),
+        inside(geom, box, job.stop.points),
+        Stopper(job.stop, precision=area_precision(box.area, job.confidence)),
+        chunk=job.chunk,
+        trace_every=job.trace_every,
+        progress=None if job.progress is None else partial(job.progress, job.ids[i]),
+        confidence=job.confidence,
+    )
 
 
 def _row(fid: str, index: int, run: HitOrMissRun, confidence: float, planar: float | None,

@@ -31,6 +31,7 @@ import pytest
 import shapely
 from shapely.geometry import box, mapping
 
+from areamc.area import estimate_areas
 from areamc.coverage import estimate_coverage
 from areamc.density import build_density, read_density
 from areamc.engine import accumulate
@@ -140,6 +141,17 @@ def on_workers(job, *args, **kwargs):
 
 
 # --- every job, one worker against two ------------------------------------------------------------
+
+
+@pytest.mark.parametrize("sampler", ["uniform", "sobol", "stratified"])
+def test_area__two_workers__every_field_identical_to_one(scene, sampler):
+    one, two = on_workers(estimate_areas, scene["regions"], stop=StopRule(points=20_000), seed=9, sampler=sampler)
+    assert report_bits(one) == report_bits(two)
+    other = estimate_areas(scene["regions"], stop=StopRule(points=20_000), seed=10, sampler=sampler, workers=2)
+    assert bits(other.rows) != bits(two.rows), "another seed must give other rows, or the identity shows nothing"
+    for row in two.rows:  # against shapely's area of the same plane geometry (a reference library)
+        assert row.exact_planar == pytest.approx(shapely.area(scene["regions"].planar[row.feature_index]), rel=1e-12)
+        assert abs(row.estimate - row.exact_planar) <= 4 * row.stderr
 
 
 def test_coverage__two_workers__every_field_identical_to_one(scene):
@@ -253,6 +265,9 @@ def test_cli__integrate_raster_and_overlap__json_identical(capsys, scene):
     one, two = _cli_pair(capsys, ["overlap", g, "--layer", "zones", "--id-field", "name", "--points", "20000",
                                   "--seed", "7"])
     assert one == two and two["results"] and two["multiplicity"]
+    one, two = _cli_pair(capsys, ["area", g, "--layer", "districts", "--id-field", "name", "--points", "20000",
+                                  "--seed", "7", "--sampler", "stratified"])
+    assert one == two and len(two["results"]) == 6
 
 
 @pytest.mark.parametrize(

@@ -8,6 +8,7 @@ from ..output import Column, OutputBatch, render, write_text
 from ..project import project_layer
 from ..samplers import interval_method
 from .common import (
+    add_worker_options,
     Screen,
     add_layer_options,
     add_output_options,
@@ -71,6 +72,7 @@ def add_parser(sub) -> None:
     add_layer_options(p)
     add_plane_options(p)
     add_sampling_options(p)
+    add_worker_options(p)
     p.add_argument("--no-exact", action="store_true", help="skip the exact planar and geodesic checks")
     p.add_argument("--trace", metavar="FILE.csv", help="write the running estimate and interval to this CSV")
     p.add_argument("--trace-every", type=positive_int, default=10_000, metavar="K",
@@ -97,6 +99,7 @@ def run(args) -> int:
             exact=not args.no_exact,
             trace_every=args.trace_every if args.trace else None,
             progress=bar,
+            workers=args.workers,
         )
     finally:
         bar.close()

@@ -27,6 +27,7 @@ class ProgressBar:
             return
         from tqdm import tqdm
 
+        tqdm.monitor_interval = 0  # no monitor thread: worker processes can then be forked (areamc.parallel)
         self._bar = tqdm(total=total, unit=unit, unit_scale=True, delay=0.5, file=sys.stderr, leave=False)
 
     def __call__(self, fid: str, points: int, est: AreaEstimate) -> None:
