@@ -37,7 +37,7 @@ import shapely
 
 from .samplers import Box
 
-__all__ = ["OUTSIDE", "INSIDE", "CROSSING", "CellGrid", "grid_cells", "build_grid", "CellClassifier",
+__all__ = ["OUTSIDE", "INSIDE", "CROSSING", "CellGrid", "Strata", "grid_cells", "build_grid", "CellClassifier",
            "edge_pieces", "crossed_cells", "inner_runs"]
 
 OUTSIDE = np.int8(0)
@@ -112,6 +112,10 @@ class CellGrid:
         iy, ix = np.divmod(np.asarray(cells, dtype=np.int64), self.nx)
         return self.box.xmin + ix * self.dx, self.box.ymin + iy * self.dy
 
+    def strata(self) -> Strata:
+        """The crossing cells to sample; the inside cells' area is known exactly."""
+        return Strata(self.box, self.nx, self.ny, self.crossing_cells, np.array([self.inside_area]))
+
     def lookup(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
         """Entry of :attr:`state` for each point (plane metres); points off the grid get a border entry.
 
@@ -132,6 +136,46 @@ class CellGrid:
         iy *= self.nx + 2
         iy += ix
         return iy
+
+
+@dataclass(frozen=True)
+class Strata:
+    """Where a stratified sampler must put points, and what the other cells contribute exactly.
+
+    Attributes
+    ----------
+    box : Box
+        The grid's box (plane metres); cells as in :class:`CellGrid`.
+    nx, ny : int
+    cells : numpy.ndarray
+        Row-major indices ``iy * nx + ix`` of the cells to sample (ascending).
+    known : numpy.ndarray
+        Per column of the classifier's answer, the exact area (m²) that all
+        the other cells contribute.
+    """
+
+    box: Box
+    nx: int
+    ny: int
+    cells: np.ndarray
+    known: np.ndarray
+
+    @property
+    def dx(self) -> float:
+        return (self.box.xmax - self.box.xmin) / self.nx
+
+    @property
+    def dy(self) -> float:
+        return (self.box.ymax - self.box.ymin) / self.ny
+
+    @property
+    def cell_area(self) -> float:
+        return self.dx * self.dy
+
+    def cell_corners(self, cells: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Lower-left corners ``(x, y)`` of cells given by row-major index, plane metres."""
+        iy, ix = np.divmod(np.asarray(cells, dtype=np.int64), self.nx)
+        return self.box.xmin + ix * self.dx, self.box.ymin + iy * self.dy
 
 
 def grid_cells(points: int, box: Box) -> tuple[int, int]:
@@ -291,6 +335,10 @@ class CellClassifier:
             self.grid = None
             return
         self.grid = build_grid(geom, box, *grid_cells(points, box))
+
+    def strata(self) -> Strata | None:
+        """The strata of a stratified sampler (:mod:`areamc.strata`): the grid's crossing cells."""
+        return None if self.grid is None else self.grid.strata()
 
     def __call__(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
         x = np.asarray(x, dtype=float)

@@ -11,10 +11,10 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from .cells import CellClassifier, crossed_cells, inner_runs
+from .cells import INSIDE, OUTSIDE, CellClassifier, Strata, build_grid, crossed_cells, inner_runs
 from .samplers import Box
 
-__all__ = ["inside", "GridIndex", "region_classifier"]
+__all__ = ["inside", "GridIndex", "RegionClassifier", "region_classifier"]
 
 
 #: Points a grid is sized for when the caller cannot say (a precision target).
@@ -255,23 +255,46 @@ def _grid_size(zones: np.ndarray, box, points: int = GUESS_POINTS) -> int:
     return int(np.clip(min(g, np.sqrt(max(points, 16))), 4, _MAX_CELLS))
 
 
-def region_classifier(region, zones, ks, points: int | None = None):
+class RegionClassifier:
     """``f(x, y)`` giving bools ``(n, 1 + len(ks))``: in `region`, and in it covered by ≥ k of `zones`.
 
     Points in plane metres.  "In `region`" is answered by :func:`inside`
     (sized for about `points` points); multiplicity is counted only for
     points inside the region, by a :class:`GridIndex` over `zones` laid on
-    the region's bounding box.
+    the region's bounding box.  :meth:`strata` gives a stratified sampler
+    the cells whose answers are not known exactly.
     """
-    karr = np.asarray(ks)
-    box = Box.of(region.bounds)
-    index = GridIndex(zones, box, points=points)
-    in_region = inside(region, box, points)
 
-    def classify(x, y):
-        within = in_region(x, y)
+    def __init__(self, region, zones, ks, points: int | None = None) -> None:
+        self.ks = np.asarray(ks)
+        self.region = region
+        self.box = Box.of(region.bounds)
+        self.index = GridIndex(zones, self.box, points=points)
+        self._in_region = inside(region, self.box, points)
+
+    def __call__(self, x, y):
+        within = self._in_region(x, y)
         counts = np.zeros(len(x), dtype=np.int64)
-        counts[within] = index.counts(x[within], y[within])
-        return np.column_stack([within, counts[:, None] >= karr[None, :]])
+        counts[within] = self.index.counts(x[within], y[within])
+        return np.column_stack([within, counts[:, None] >= self.ks[None, :]])
 
-    return classify
+    def strata(self) -> Strata:
+        """Cells to sample, on the zone index's grid: those the region's edge crosses, and those in the
+        region that a zone's edge crosses.  Every other cell is known exactly: outside the region it
+        adds nothing; inside, its count of covering zones is the same all over it (m² per column)."""
+        g = self.index.cells
+        region = build_grid(self.region, self.box, g, g).cells
+        width = g + 2
+        base = self.index._base.reshape(width, width)[1:-1, 1:-1]
+        partial = np.diff(self.index._indptr).reshape(width, width)[1:-1, 1:-1]
+        exact = (region == OUTSIDE) | ((region == INSIDE) & (partial == 0))
+        area = (self.box.xmax - self.box.xmin) * (self.box.ymax - self.box.ymin) / (g * g)
+        whole = exact & (region == INSIDE)
+        known = [np.count_nonzero(whole) * area]
+        known += [np.count_nonzero(whole & (base >= k)) * area for k in self.ks]
+        return Strata(self.box, g, g, np.flatnonzero(~exact.ravel()), np.array(known, dtype=float))
+
+
+def region_classifier(region, zones, ks, points: int | None = None) -> RegionClassifier:
+    """The classifier of coverage jobs: a :class:`RegionClassifier` (kept as a function for callers)."""
+    return RegionClassifier(region, zones, ks, points)

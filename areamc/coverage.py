@@ -23,15 +23,15 @@ import shapely
 from .checks import binomial_deviation, flagged
 from .classify import region_classifier
 from .density import DensitySource, DensityView, warn_nodata
-from .engine import DEFAULT_CHUNK, hit_or_miss
+from .engine import DEFAULT_CHUNK, MIN_REPLICATES, HitOrMissRun, hit_or_miss
 from .errors import OptionError
-from .estimate import share_precision
+from .estimate import replicate_precision, share_precision
 from .exact import at_least, covered_area, multiplicity_areas, planar_area
 from .intervals import check_confidence, wilson_interval
 from .parallel import SourceHandle, check_workers, map_ordered, source_handle, workers_for_source
 from .project import ProjectedLayer
 from .runinfo import RunInfo
-from .samplers import Box, SamplerFactory, make_sampler, sampler_name, check_sampler
+from .samplers import Box, SamplerFactory, draws_replicates, make_sampler, sampler_name
 from .seeds import child_seed, job_root, make_seed
 from .sequential import FALLS_SHORT, UNDECIDED, check_claim, claim_decided, confidence_sequence, verdict
 from .stopping import StopRule, Stopper
@@ -57,6 +57,8 @@ TIMED_OUT = "k2-timed-out"
 #: Interval method tokens.
 WILSON = "wilson"
 SEQUENCE = "confidence-sequence"
+#: Student-t interval from the spread of replicates (``--sampler sobol`` or ``stratified``).
+STUDENT_T = "student-t"
 
 _AREA_STREAM = 0
 _POPULATION_STREAM = 1
@@ -138,8 +140,9 @@ class CoverageRow:
         The multiplicity: the share covered by at least `k` zones.
     share, stderr, ci_low, ci_high : float
         Covered share of the region's area (0..1), its standard error and
-        interval (Wilson, or the confidence sequence when a claim is checked;
-        see `interval`).
+        interval (Wilson, or the confidence sequence when a claim is checked,
+        or with a replicate sampler the covered area's Student-t interval
+        over the region's exact area; see `interval`).
     points, hits : int
         In-region sample points, and those covered by at least k zones.
     region_area : float
@@ -151,12 +154,13 @@ class CoverageRow:
         computed (time limit, or ``exact=False``).
     z : float or None
         Deviation of the covered count from the exact share (binomial mid-p
-        score over the in-region points, :mod:`areamc.checks`).
+        score over the in-region points, :mod:`areamc.checks`; for replicate
+        samplers the t score turned into a normal score).
     flagged : bool
     claim, verdict : float or None, str or None
         The claimed share and "meets", "falls short" or "undecided".
     interval : str
-        "wilson" or "confidence-sequence".
+        "wilson", "confidence-sequence" or "student-t".
     stop_reason : str
         Why the region's sampling stopped ("budget", "target", "decided", "time").
     pilot_points : int
@@ -304,7 +308,11 @@ def estimate_coverage(
     """
     stop = stop or StopRule()
     confidence = check_confidence(confidence)
-    check_sampler(sampler, "coverage")
+    replicates = draws_replicates(sampler)
+    if replicates and claim is not None:
+        raise OptionError(f"{{param}}: claim verdicts need a sampler of single points such as 'uniform' (a "
+                          f"confidence sequence over points); {sampler_name(sampler)!r} draws replicates",
+                          param="sampler")
     ks = _check_ks(ks)
     workers = check_workers(workers)
     if claim is not None:
@@ -379,27 +387,39 @@ def _coverage_region(job: _CoverageJob, r: int) -> _RegionResult:
     decided = claim_decided(claim, confidence) if claim is not None else None
     near = job.zones[np.sort(job.tree.query(region, predicate="intersects"))]
     box = Box.of(region.bounds)
-    classify = region_classifier(region, near, ks)
+    classify = region_classifier(region, near, ks, stop.points)
+    area = float(job.region_areas[r])
+    replicates = draws_replicates(sampler)
     run = hit_or_miss(
         make_sampler(sampler, child_seed(streams, r, _AREA_STREAM), box),
         classify,
         Stopper(stop, precision=share_precision(confidence), decided=decided),
         chunk=chunk,
+        confidence=confidence,
+        # replicate samplers: the shares' half-widths, areas over the region's exact area
+        replicate_target=lambda s: replicate_precision(s.known, s.span, confidence, MIN_REPLICATES,
+                                                       columns=range(1, 1 + len(ks)), scale=area),
     )
     exact_shares, status = _exact_shares(region, near, ks, exact, job.exact_time_limit_s)
     people, note, nodata = None, None, _NO_CELLS
     if density is not None:
         view = density.for_region(region)
         nodata = view.nodata_cells
+        # the population part takes single points: by importance, or uniform when the area part draws replicates
         people, weighted, effective = _population(view, near, classify, child_seed(streams, r, _POPULATION_STREAM),
-                                                  stop, claim, confidence, sampler, chunk, importance, exact)
+                                                  stop, claim, confidence, "uniform" if replicates else sampler,
+                                                  chunk, importance, exact)
         note = concentration(rid, weighted, effective)
     n_in = run.hits[0]
     rows = []
     for c, k in enumerate(ks):
-        rows.append(_row(rid, regions.source.indices[r], k, run.hits[c + 1], n_in, float(job.region_areas[r]),
-                         exact_shares.get(k), claim, confidence, run,
-                         None if people is None else people(c + 1, k)))
+        part = None if people is None else people(c + 1, k)
+        if replicates:
+            rows.append(_replicate_row(rid, regions.source.indices[r], k, c + 1, run, area, exact_shares.get(k),
+                                       confidence, part))
+        else:
+            rows.append(_row(rid, regions.source.indices[r], k, run.hits[c + 1], n_in, area,
+                             exact_shares.get(k), claim, confidence, run, part))
     return _RegionResult(tuple(rows), status, nodata, note)
 
 
@@ -437,6 +457,23 @@ def _row(rid, index, k, hits, n, region_area, exact_share, claim, confidence, ru
         exact_share=exact_share, z=z, flagged=flagged(z),
         claim=claim, verdict=None if claim is None else verdict(hits, n, claim, confidence), interval=method,
         stop_reason=run.reason, pilot_points=run.pilot_points, population=people,
+    )
+
+
+def _replicate_row(rid, index, k, column, run: HitOrMissRun, region_area, exact_share, confidence,
+                   people) -> CoverageRow:
+    """A row from replicate estimates: the covered area (m²) over the region's exact area, with a t interval."""
+    est = run.estimate(column, confidence)
+    share = est.estimate / region_area
+    low, high = max(0.0, est.ci_low / region_area), min(1.0, est.ci_high / region_area)
+    z = est.deviation(exact_share * region_area) if exact_share is not None else None
+    return CoverageRow(
+        id=rid, feature_index=index, k=k, share=share, stderr=est.stderr / region_area, ci_low=low, ci_high=high,
+        points=run.hits[0], hits=run.hits[column], region_area=region_area, covered=est.estimate,
+        uncovered=region_area - est.estimate, uncovered_ci_low=(1 - high) * region_area,
+        uncovered_ci_high=(1 - low) * region_area, exact_share=exact_share, z=z, flagged=flagged(z),
+        claim=None, verdict=None, interval=STUDENT_T, stop_reason=run.reason, pilot_points=run.pilot_points,
+        population=people,
     )
 
 

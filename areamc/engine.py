@@ -250,14 +250,14 @@ class HitOrMissRun:
     replicates: int = 0
     sums: tuple[float, ...] = ()
     sumsq: tuple[float, ...] = ()
-    known: float = 0.0
+    known: tuple[float, ...] = ()
     span: float = 0.0
 
     def estimate(self, column: int = 0, confidence: float = 0.95) -> AreaEstimate:
         """The area estimate (m²) of one column, from the merged counts (or replicate sums)."""
         if self.replicates:
             return AreaEstimate.from_replicates(
-                self.sums[column], self.sumsq[column], self.replicates, known=self.known, span=self.span,
+                self.sums[column], self.sumsq[column], self.replicates, known=self.known[column], span=self.span,
                 points=self.points, hits=self.hits[column], box_area=self.box_area, confidence=confidence)
         return AreaEstimate.from_counts(self.hits[column], self.points, self.box_area, confidence)
 
@@ -274,6 +274,7 @@ def hit_or_miss(
     trace_every: int | None = None,
     progress: EstimateProgress | None = None,
     confidence: float = 0.95,
+    replicate_target: Callable[[Sampler], Callable] | None = None,
 ) -> HitOrMissRun:
     """Throw the sampler's points into its box and count hits (see :func:`accumulate` for the options).
 
@@ -293,13 +294,18 @@ def hit_or_miss(
     confidence : float
         Of the running estimates, and of the precision measure of replicate
         samplers (plain runs are judged by the stopper's own).
+    replicate_target : callable, optional
+        ``replicate_target(sampler)`` gives the precision measure a replicate
+        sampler's run is judged by, once the sampler is bound and planned
+        (default: every column's t half-width in m²,
+        :func:`~areamc.estimate.replicate_precision`).
 
     Returns
     -------
     HitOrMissRun
     """
     if is_replicate(sampler):
-        return _replicate_run(sampler, classify, stop, chunk, trace_every, progress, confidence)
+        return _replicate_run(sampler, classify, stop, chunk, trace_every, progress, confidence, replicate_target)
     box_area = sampler.domain.area
 
     def report(drawn: int, points: int, sums, _sumsq) -> None:
@@ -321,7 +327,8 @@ def hit_or_miss(
 MIN_REPLICATES = 16
 
 
-def _replicate_run(sampler, classify, stop: Stopper, chunk, trace_every, progress, confidence) -> HitOrMissRun:
+def _replicate_run(sampler, classify, stop: Stopper, chunk, trace_every, progress, confidence,
+                   target=None) -> HitOrMissRun:
     """Hit-or-miss by whole replicates: the engine sums each replicate's estimate, the spread gives the interval.
 
     The sampler is bound to the classifier (a stratified sampler takes its
@@ -342,7 +349,9 @@ def _replicate_run(sampler, classify, stop: Stopper, chunk, trace_every, progres
         raise OptionError(f"{{param}}: the {sampler_name(type(sampler))!r} sampler needs at least "
                           f"{MIN_REPLICATES * size:,} points here ({MIN_REPLICATES} replicates of {size:,})",
                           param="points")
-    stopper = stop.per_replicate(size, replicate_precision(sampler.known, sampler.span, confidence, MIN_REPLICATES))
+    measure = (target(sampler) if target is not None
+               else replicate_precision(sampler.known, sampler.span, confidence, MIN_REPLICATES))
+    stopper = stop.per_replicate(size, measure)
     drawn = [0]  # points drawn so far, pilot included
     pilot = [0]
     hits: list[np.ndarray] = []  # hit counts of the current stage, per chunk
@@ -369,7 +378,7 @@ def _replicate_run(sampler, classify, stop: Stopper, chunk, trace_every, progres
     def report(_drawn: int, steps: int, sums, sumsq) -> None:
         if steps >= 2:
             progress(drawn[0], AreaEstimate.from_replicates(
-                float(sums[0]), float(sumsq[0]), steps, known=sampler.known, span=sampler.span,
+                float(sums[0]), float(sumsq[0]), steps, known=float(np.ravel(sampler.known)[0]), span=sampler.span,
                 points=steps * sampler.replicate_size, hits=0, box_area=sampler.domain.area, confidence=confidence))
 
     # a pilot is judged every MIN_REPLICATES replicates at most, so small replicates do not overshoot it
@@ -382,5 +391,6 @@ def _replicate_run(sampler, classify, stop: Stopper, chunk, trace_every, progres
     return HitOrMissRun(run.points * sampler.replicate_size, tuple(int(h) for h in total_hits),
                         sampler.domain.area, (), run.reason, pilot[0], run.points,
                         tuple(float(v) for v in run.sums), tuple(float(v) for v in run.sumsq),
-                        float(sampler.known), float(sampler.span))
+                        tuple(float(v) for v in np.broadcast_to(np.asarray(sampler.known, float), (len(run.sums),))),
+                        float(sampler.span))
 

@@ -216,20 +216,28 @@ def share_precision(confidence: float):
     return measure
 
 
-def replicate_precision(known: float, span: float, confidence: float, minimum: int = 2):
-    """Precision measure for replicate estimates (rows are replicates): the t half-width of every column.
+def replicate_precision(known, span: float, confidence: float, minimum: int = 2, *, columns=None,
+                        scale: float = 1.0):
+    """Precision measure for replicate estimates (rows are replicates): the t half-width of columns.
 
-    Fewer than `minimum` replicates give an infinite half-width.
+    `known` is the exactly known part (m²), one value or one per column;
+    `columns` selects the columns that must meet the target (default all)
+    and `scale` divides half-widths and estimates (a region's area turns
+    areas into shares).  Fewer than `minimum` replicates give an infinite
+    half-width.
     """
 
     def measure(sums: np.ndarray, sumsq: np.ndarray, replicates: int):
+        chosen = range(len(sums)) if columns is None else columns
         if replicates < max(minimum, 2):
-            return [(math.inf, 0.0)] * len(sums)
+            return [(math.inf, 0.0)] * len(chosen)
+        base = np.broadcast_to(np.asarray(known, dtype=float), (len(sums),))
         out = []
-        for total, square in zip(sums, sumsq):
-            est = AreaEstimate.from_replicates(float(total), float(square), replicates, known=known, span=span,
-                                               points=replicates, hits=0, box_area=span, confidence=confidence)
-            out.append((est.half_width, est.estimate))
+        for c in chosen:
+            est = AreaEstimate.from_replicates(float(sums[c]), float(sumsq[c]), replicates, known=float(base[c]),
+                                               span=span, points=replicates, hits=0, box_area=span,
+                                               confidence=confidence)
+            out.append((est.half_width / scale, est.estimate / scale))
         return out
 
     return measure

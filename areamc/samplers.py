@@ -43,6 +43,7 @@ __all__ = [
     "SobolSampler",
     "SOBOL_MIN_POINTS",
     "check_sampler",
+    "draws_replicates",
     "require_box",
     "is_replicate",
     "interval_method",
@@ -392,19 +393,23 @@ _stratified.replicate = True
 SAMPLERS: dict[str, SamplerFactory] = {"uniform": UniformSampler, "sobol": SobolSampler, "stratified": _stratified}
 
 
+def draws_replicates(kind: str | SamplerFactory) -> bool:
+    """True when a sampler kind draws replicates (``sobol``, ``stratified``): its factory's ``replicate`` mark."""
+    factory = SAMPLERS.get(kind) if isinstance(kind, str) else kind
+    return bool(getattr(factory, "replicate", False))
+
+
 def check_sampler(kind: str | SamplerFactory, job: str) -> None:
     """Refuse a replicate sampler (``sobol``, ``stratified``) for a job that needs per-point counts (parameter ``sampler``).
 
-    Coverage shares, overlaps, the multiplicity profile and weighted totals
-    are formed from hit counts or per-point scores; only the area job turns
-    replicate sums into estimates so far.  A factory marks itself with a
-    true ``replicate`` attribute.
+    Overlaps, the multiplicity profile and weighted totals are formed from
+    hit counts or per-point scores; the area and coverage jobs turn
+    replicate sums into estimates.
     """
-    factory = SAMPLERS.get(kind) if isinstance(kind, str) else kind
-    if getattr(factory, "replicate", False):
+    if draws_replicates(kind):
         raise OptionError(f"{{param}}: the {job} job takes a sampler of single points such as 'uniform'; "
-                          f"{sampler_name(kind)!r} draws replicates, which only the area job uses so far",
-                          param="sampler")
+                          f"{sampler_name(kind)!r} draws replicates, which only the area and coverage jobs use "
+                          "so far", param="sampler")
 
 
 def register_sampler(name: str, factory: SamplerFactory) -> None:

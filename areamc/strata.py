@@ -30,7 +30,7 @@ import math
 
 import numpy as np
 
-from .cells import CellGrid
+from .cells import Strata
 from .errors import OptionError
 from .samplers import Domain, UniformSampler, require_box
 
@@ -79,7 +79,7 @@ class StratifiedSampler:
     def __init__(self, seed: np.random.SeedSequence, domain: Domain) -> None:
         self.domain = require_box(domain, "stratified")
         self._uniforms = UniformSampler(seed, _Unit3())
-        self._grid: CellGrid | None = None
+        self._grid: Strata | None = None
         self.known = 0.0
         self.span = 0.0
         self.replicate_size = 1
@@ -88,17 +88,17 @@ class StratifiedSampler:
 
     # -- set-up ---------------------------------------------------------------------------------------------
     def bind(self, classify) -> None:
-        """Take the strata from `classify`'s cell grid (a :class:`~areamc.cells.CellClassifier`)."""
-        grid = getattr(classify, "grid", None)
-        if not isinstance(grid, CellGrid):
-            raise OptionError("{param}: the stratified sampler needs a set answered from a cell grid "
-                              "(the area job's features); this job takes 'uniform' or 'sobol'", param="sampler")
-        if grid.box != self.domain:
-            raise ValueError("the classifier's grid covers another box than the sampler")
-        self._grid = grid
-        self.known = grid.inside_area
-        self._cells = grid.crossing_cells
-        self.span = len(self._cells) * grid.cell_area
+        """Take the strata from `classify` (its ``strata()``: a :class:`~areamc.cells.Strata` over this box)."""
+        strata = classify.strata() if hasattr(classify, "strata") else None
+        if not isinstance(strata, Strata):
+            raise OptionError("{param}: the stratified sampler needs a set answered from a cell grid; "
+                              "this job takes 'uniform' or 'sobol'", param="sampler")
+        if strata.box != self.domain:
+            raise ValueError("the classifier's strata cover another box than the sampler")
+        self._grid = strata
+        self.known = strata.known
+        self._cells = strata.cells
+        self.span = len(self._cells) * strata.cell_area
         self._group(1)
 
     def plan(self, points: int | None) -> None:

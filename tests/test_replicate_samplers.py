@@ -169,6 +169,80 @@ def test_too_few_points_for_replicates():
         run("sobol", 1, points=200)
 
 
+# -- coverage shares ------------------------------------------------------------------------------------
+
+def coverage_scene():
+    """A district and 14 overlapping zones (disks and boxes, some reaching past it), plane metres."""
+    rng = np.random.default_rng(77)
+    zones = [Point(X0 + dx, Y0 + dy).buffer(r, quad_segs=12)
+             for dx, dy, r in zip(rng.uniform(-7e3, 7e3, 10), rng.uniform(-7e3, 7e3, 10), rng.uniform(2e3, 5e3, 10))]
+    zones += [shapely.box(X0 - 9e3, Y0 - 2e3, X0 - 1e3, Y0 + 1e3), shapely.box(X0 + 2e3, Y0 - 9e3, X0 + 4e3, Y0 + 9e3),
+              shapely.box(X0 - 3e3, Y0 + 5e3, X0 + 9e3, Y0 + 7e3), shapely.box(X0 - 12e3, Y0 - 12e3, X0 + 12e3, Y0 - 6e3)]
+    return GEOM, zones
+
+
+def exact_at_least(region, zones, k: int) -> float:
+    """Share of `region` covered by at least k zones, from shapely overlays (a reference library):
+    the union of all k-wise intersections, for k = 1 or 2."""
+    from itertools import combinations
+
+    if k == 1:
+        covered = shapely.union_all(zones)
+    else:
+        covered = shapely.union_all([a.intersection(b) for a, b in combinations(zones, 2)])
+    return shapely.intersection(region, covered).area / region.area
+
+
+def projected_scene():
+    from areamc.load import layer_from_geometries
+    from areamc.project import project_layers
+
+    region, zones = coverage_scene()
+    crs = "EPSG:32632"
+    layers = [layer_from_geometries([region], crs, ids=["D"]), layer_from_geometries(zones, crs)]
+    return project_layers(layers, crs="+proj=laea +lat_0=46 +lon_0=10.3 +datum=WGS84 +units=m +no_defs", densify_m=1e9)
+
+
+@pytest.mark.parametrize("kind", ["sobol", "stratified"])
+def test_coverage_shares_cover_at_nominal_rate(kind):
+    from areamc.coverage import estimate_coverage
+
+    regions, zones = projected_scene()
+    exact = {k: exact_at_least(regions.planar[0], list(zones.planar), k) for k in (1, 2)}
+    reps, misses = 120, {1: 0, 2: 0}
+    for seed in range(reps):
+        report = estimate_coverage(regions, zones, ks=(1, 2), stop=StopRule(points=8_192), seed=seed, sampler=kind,
+                                   exact=seed == 0)
+        for row in report.rows:
+            assert row.interval == "student-t"
+            misses[row.k] += not (row.ci_low <= exact[row.k] <= row.ci_high)
+            if seed == 0:  # the tool's own exact check agrees with the overlay here
+                assert row.exact_share == pytest.approx(exact[row.k], rel=1e-9)
+    lo, hi = miss_band(reps)
+    assert all(lo <= m <= hi for m in misses.values()), misses
+
+
+def test_coverage_stratified_known_cells_are_exact():
+    """The strata's known areas: region cells with one covering count all over them, checked by shapely."""
+    from areamc.classify import RegionClassifier
+
+    region, zones = coverage_scene()
+    classify = RegionClassifier(region, zones, (1, 2), points=40_000)
+    strata = classify.strata()
+    sampled = np.zeros(strata.nx * strata.ny, dtype=bool)
+    sampled[strata.cells] = True
+    x0, y0 = strata.cell_corners(np.flatnonzero(~sampled))
+    cells = shapely.box(x0, y0, x0 + strata.dx, y0 + strata.dy)
+    inside_region = shapely.within(cells, region)
+    assert strata.known[0] == pytest.approx(inside_region.sum() * strata.cell_area, rel=1e-12)
+    depth = np.sum([shapely.within(cells, z) for z in zones], axis=0)
+    touched = np.sum([shapely.intersects(cells, z) for z in zones], axis=0)
+    # a known cell in the region is covered by the same zones all over it: every zone holds it or misses it
+    assert (depth[inside_region] == touched[inside_region]).all()
+    for c, k in enumerate((1, 2), start=1):
+        assert strata.known[c] == pytest.approx((inside_region & (depth >= k)).sum() * strata.cell_area, rel=1e-12)
+
+
 # -- through the command line ------------------------------------------------------------------------------
 
 
@@ -196,7 +270,8 @@ def test_cli_area_with_replicate_sampler(tmp_path, capsys, kind):
     "argv, match",
     [
         (["area", "{f}", "--sampler", "stratified", "--trace", "{d}/t.csv"], r"--trace-every|--trace"),
-        (["coverage", "{f}", "{f}", "--sampler", "sobol"], r"--sampler: the coverage job takes a sampler of single points"),
+        (["coverage", "{f}", "{f}", "--sampler", "sobol", "--claim", "0.9"], r"--sampler: claim verdicts need a sampler"),
+        (["integrate", "{f}", "--density", "1e-4", "--sampler", "sobol"], r"--sampler: the integrate job takes a sampler"),
         (["overlap", "{f}", "--sampler", "stratified"], r"--sampler: the overlap job takes a sampler of single points"),
         (["area", "{f}", "--sampler", "sobol", "-n", "100"], r"--points|-n"),
     ],

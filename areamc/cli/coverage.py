@@ -9,6 +9,7 @@ from ..density import build_density
 from ..errors import OptionError
 from ..output import Column
 from ..load import read_layer
+from ..samplers import interval_method
 from ..project import project_layers
 from ..sequential import FALLS_SHORT, MEETS, UNDECIDED, check_claim
 from .density_options import add_density_options, density_metadata, read_density_option
@@ -111,7 +112,8 @@ def _tally(what: str, verdicts, claim: float, confidence: float) -> str:
 def _header(args, report, inputs) -> list[str]:
     regions, zones, spec = inputs
     run = report.run
-    method = "confidence sequences (valid under early stopping)" if args.claim is not None else "Wilson intervals"
+    method = ("confidence sequences (valid under early stopping)" if args.claim is not None
+              else interval_method(run.sampler))
     if spec is not None:
         method += f"; population from {spec.kind} {args.density}"
     return [
