@@ -178,6 +178,8 @@ def estimate_areas(
         Worker processes the features are shared among (None: every usable
         core; :func:`~areamc.parallel.check_workers`).  Results are the same
         to the last bit for any number: each feature has its own stream.
+        With fewer features than workers, each feature's fixed-count run is
+        cut into spans of its stream instead (no progress per chunk then).
 
     Returns
     -------
@@ -188,9 +190,11 @@ def estimate_areas(
     confidence = check_confidence(confidence)
     workers = check_workers(workers)
     root = make_seed(seed)
+    # fewer features than workers: each feature's run is cut into spans of its stream instead
+    split = workers if workers > len(layer) else 1
     job = _AreaJob(layer.planar, job_root(root, "area"), stop, confidence, sampler, chunk, trace_every,
-                   progress if workers == 1 else None, tuple(layer.ids))
-    if workers == 1:
+                   progress if workers == 1 or split > 1 else None, tuple(layer.ids), split)
+    if workers == 1 or split > 1:
         runs = [_area_feature(job, i) for i in range(len(layer))]
     else:
         # with several workers progress comes per finished feature: its id and its final estimate
@@ -222,6 +226,7 @@ class _AreaJob:
     trace_every: int | None
     progress: Progress | None
     ids: tuple[str, ...]
+    span_workers: int = 1
 
 
 def _area_feature(job: _AreaJob, i: int) -> HitOrMissRun:
@@ -234,8 +239,9 @@ def _area_feature(job: _AreaJob, i: int) -> HitOrMissRun:
         Stopper(job.stop, precision=area_precision(box.area, job.confidence)),
         chunk=job.chunk,
         trace_every=job.trace_every,
-        progress=None if job.progress is None else partial(job.progress, job.ids[i]),
+        progress=None if job.progress is None or job.span_workers > 1 else partial(job.progress, job.ids[i]),
         confidence=job.confidence,
+        workers=job.span_workers,
     )
 
 

@@ -275,6 +275,7 @@ def hit_or_miss(
     progress: EstimateProgress | None = None,
     confidence: float = 0.95,
     replicate_target: Callable[[Sampler], Callable] | None = None,
+    workers: int = 1,
 ) -> HitOrMissRun:
     """Throw the sampler's points into its box and count hits (see :func:`accumulate` for the options).
 
@@ -299,6 +300,11 @@ def hit_or_miss(
         sampler's run is judged by, once the sampler is bound and planned
         (default: every column's t half-width in m²,
         :func:`~areamc.estimate.replicate_precision`).
+    workers : int
+        With more than one, a fixed-count run of a plain sampler (no trace,
+        progress, time budget or claim) is cut into spans of the stream that
+        worker processes count (:func:`~areamc.parallel.fixed_count_sums`);
+        the counts are the same as on one worker.
 
     Returns
     -------
@@ -307,6 +313,12 @@ def hit_or_miss(
     if is_replicate(sampler):
         return _replicate_run(sampler, classify, stop, chunk, trace_every, progress, confidence, replicate_target)
     box_area = sampler.domain.area
+    if workers > 1 and _splittable(stop, trace_every, progress):
+        from .parallel import fixed_count_sums
+
+        run = fixed_count_sums(sampler, lambda x, y: np.asarray(classify(x, y), dtype=bool), stop.rule.points,
+                               workers, chunk=chunk)
+        return HitOrMissRun(run.points, tuple(int(h) for h in run.sums), box_area, (), run.reason)
 
     def report(drawn: int, points: int, sums, _sumsq) -> None:
         progress(drawn, AreaEstimate.from_counts(int(sums[0]), points, box_area, confidence))
@@ -321,6 +333,13 @@ def hit_or_miss(
     )
     return HitOrMissRun(run.points, tuple(int(h) for h in run.sums), sampler.domain.area, run.trace,
                         run.reason, run.pilot_points)
+
+
+def _splittable(stop: Stopper, trace_every, progress) -> bool:
+    """True for a run whose points are fixed in advance, so that workers can count spans of its stream."""
+    rule = stop.rule
+    return (not rule.adaptive and rule.time_s is None and not stop.decides and trace_every is None
+            and progress is None)
 
 
 #: Fewest replicates a replicate sampler's run may have (and a pilot waits for).

@@ -235,6 +235,11 @@ class Stopper:
         return self.rule.point_budget // self.unit
 
     @property
+    def decides(self) -> bool:
+        """True when a claim test may stop the run early."""
+        return self._decided is not None
+
+    @property
     def two_stage(self) -> bool:
         """True when a pilot is followed by a final batch (a precision target, no claim)."""
         return self.rule.adaptive and self._decided is None

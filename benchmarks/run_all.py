@@ -52,6 +52,7 @@ ROWS = [
     ("multiplicity", "run", {"sampler": "stratified"}, "(c)"),
     ("memory_points", "run", {}, "(d)"),
     ("workers", "run", {}, "(e)"),
+    ("workers_one_region", "run", {}, "(e)"),
     ("classify_zones", "run", {}, "item 1"),
     ("raster_total", "run", {}, ""),
     ("area_throughput", "run", {}, ""),

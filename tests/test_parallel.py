@@ -154,6 +154,25 @@ def test_area__two_workers__every_field_identical_to_one(scene, sampler):
         assert abs(row.estimate - row.exact_planar) <= 4 * row.stderr
 
 
+def test_area__one_feature_split_by_stream_spans__identical_to_one_worker(scene, monkeypatch):
+    """Fewer features than workers: the feature's fixed-count run is cut into spans that two workers count."""
+    from dataclasses import replace as with_
+
+    import areamc.parallel
+
+    calls = []
+    real = areamc.parallel.fixed_count_sums
+    monkeypatch.setattr(areamc.parallel, "fixed_count_sums", lambda *a, **k: calls.append(a[3]) or real(*a, **k))
+
+    regions = scene["regions"]
+    one_feature = with_(regions, ids=regions.ids[:1], planar=regions.planar[:1], lonlat=regions.lonlat[:1])
+    stop = StopRule(points=300_000)  # several 65,536-point spans, the last one short
+    one, two = on_workers(estimate_areas, one_feature, stop=stop, seed=4)
+    assert report_bits(one) == report_bits(two)
+    assert calls == [2], "the two-worker run must have been split into spans"
+    assert one.rows[0].points == 300_000 and abs(one.rows[0].z) < 4
+
+
 def test_coverage__two_workers__every_field_identical_to_one(scene):
     one, two = on_workers(estimate_coverage, scene["regions"], scene["zones"], ks=(1, 2), stop=STOP, seed=9)
     assert report_bits(one) == report_bits(two)
