@@ -241,7 +241,11 @@ class BlockDensity:
             self.rates = np.where(self.areas > 0, self.counts / self.areas, 0.0)
         shapely.prepare(blocks.planar)
         self._tree = shapely.STRtree(blocks.planar)
-        self._index = GridIndex(blocks.planar, Box.of(shapely.total_bounds(blocks.planar)))
+
+    @cached_property
+    def _index(self) -> GridIndex:
+        """The grid index of the blocks, for the density at a point; built on first use (importance sampling never asks)."""
+        return GridIndex(self.blocks.planar, Box.of(shapely.total_bounds(self.blocks.planar)))
 
     def near(self, geom) -> np.ndarray:
         """Indices of blocks sharing area with `geom` (plane metres); blocks that only touch it are left out."""
