@@ -479,8 +479,10 @@ def _replicate_row(rid, index, k, column, run: HitOrMissRun, region_area, exact_
 
 def _population(view: DensityView, near, classify, seed, stop, claim, confidence, sampler, chunk, importance, exact):
     """Run the density-weighted sample of one region; return a function giving each k's population part, and the run."""
+    # blocks answered exactly (wholly in the region, and in each meeting zone whole) are counted, not sampled
+    split = view.split(near, classify.ks) if importance and claim is None and hasattr(view, "split") else None
     run = weighted_run(view, classify, seed, stop=stop, confidence=confidence, target=SHARES, claim=claim,
-                       sampler=sampler, chunk=chunk, importance=importance)
+                       sampler=sampler, chunk=chunk, importance=importance, split=split)
     truth = view.exact_total() if exact else None
     covered_truth = None
     if truth:  # sources with an exact total (blocks, rasters) give the exact covered share at k = 1

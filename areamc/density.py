@@ -307,8 +307,12 @@ class BlockView(_PointwiseView):
     @cached_property
     def _proposal(self) -> Proposal:
         src = self.source
-        near = [i for i in src.near(self.region) if src.counts[i] > 0]
-        if not near:
+        return self._proposal_of(np.array([i for i in src.near(self.region) if src.counts[i] > 0], dtype=np.int64))
+
+    def _proposal_of(self, near: np.ndarray) -> Proposal:
+        """Draw one of the blocks `near` (ascending indices) by its count, then a point uniform in it."""
+        src = self.source
+        if not len(near):
             return Proposal(0.0, None)
         every, block = src.triangulation
         keep = np.isin(block, near)  # near is ascending, so triangles stay in the order of the blocks
@@ -322,6 +326,31 @@ class BlockView(_PointwiseView):
             return _in_triangles(tri[pick], u[:, 1:3])
 
         return Proposal(total, draw)
+
+    def split(self, zones, ks) -> tuple[Proposal, np.ndarray]:
+        """Blocks whose answers are known exactly, and an importance sampler over the others.
+
+        A block wholly inside the region whose every meeting zone holds it
+        whole (shapely ``within``, ``intersects`` and ``contains``, plane
+        metres) adds its whole count to "in the region" and to every k up to
+        the number of zones holding it; the other blocks near the region are
+        drawn by their counts.  Returns ``(proposal over the other blocks,
+        known counts per column: in the region, then each k of `ks`)``.
+        """
+        src = self.source
+        near = np.array([i for i in src.near(self.region) if src.counts[i] > 0], dtype=np.int64)
+        blocks = src.blocks.planar[near]
+        whole = shapely.within(blocks, self.region) if len(near) else np.zeros(0, dtype=bool)
+        meets = holds = np.zeros(len(near), dtype=np.int64)
+        zones = np.asarray(zones, dtype=object)
+        if len(near) and len(zones):
+            b, z = shapely.STRtree(zones).query(blocks, predicate="intersects")
+            meets = np.bincount(b, minlength=len(near))
+            holds = np.bincount(b[shapely.contains(zones[z], blocks[b])], minlength=len(near))
+        known = whole & (meets == holds)
+        counts = src.counts[near]
+        parts = [float(np.sum(counts[known]))] + [float(np.sum(counts[known & (holds >= k)])) for k in ks]
+        return self._proposal_of(near[~known]), np.array(parts)
 
 
 # -- rasters ------------------------------------------------------------------

@@ -47,6 +47,9 @@ class AreaEstimate:
     box_area : float
         The scale: the sampling box's area (m²), or a proposal's total count.
     confidence : float
+    known : float
+        A part known exactly and added to the count's estimate (strata
+        counted whole, :meth:`from_counts`); 0 otherwise.
     replicates : int
         0 for a binomial count (Wilson interval); otherwise the number of
         independent replicates (scramblings, rounds of strata) whose spread
@@ -63,23 +66,33 @@ class AreaEstimate:
     box_area: float
     confidence: float
     replicates: int = 0
+    known: float = 0.0
 
     @classmethod
-    def from_counts(cls, hits: int, points: int, box_area: float, confidence: float) -> "AreaEstimate":
-        """Form the estimate, standard error and Wilson interval from counts."""
+    def from_counts(cls, hits: int, points: int, box_area: float, confidence: float,
+                    known: float = 0.0) -> "AreaEstimate":
+        """Form the estimate, standard error and Wilson interval from counts, plus an exactly `known` part.
+
+        With ``box_area == 0`` (nothing left to sample) the estimate is
+        `known` itself, with no spread.
+        """
+        if box_area == 0:
+            return cls(float(known), 0.0, float(known), float(known), int(points), int(hits), 0.0,
+                       float(confidence), known=float(known))
         if points <= 0:
             raise ValueError("an estimate needs at least one point")
         p = hits / points
         low, high = wilson_interval(hits, points, confidence)
         return cls(
-            estimate=box_area * p,
+            estimate=known + box_area * p,
             stderr=box_area * math.sqrt(p * (1 - p) / points),
-            ci_low=box_area * float(low),
-            ci_high=box_area * float(high),
+            ci_low=known + box_area * float(low),
+            ci_high=known + box_area * float(high),
             points=int(points),
             hits=int(hits),
             box_area=float(box_area),
             confidence=float(confidence),
+            known=float(known),
         )
 
     @classmethod
@@ -131,7 +144,9 @@ class AreaEstimate:
         if self.replicates:
             scale = deviation_scale(self.stderr, self.ci_low, self.ci_high, self.confidence)
             return t_deviation(normal_deviation(self.estimate, exact, scale), self.replicates - 1)
-        return binomial_deviation(self.hits, self.points, exact / self.box_area)
+        if self.box_area == 0:
+            return normal_deviation(self.estimate, exact, 0.0)
+        return binomial_deviation(self.hits, self.points, (exact - self.known) / self.box_area)
 
     def to_dict(self) -> dict:
         return asdict(self)

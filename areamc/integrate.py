@@ -18,6 +18,7 @@ import numpy as np
 import shapely
 
 from .checks import flagged, normal_deviation
+from .classify import inside
 from .density import DensitySource, warn_nodata
 from .engine import DEFAULT_CHUNK
 from .exact import planar_area
@@ -25,7 +26,7 @@ from .intervals import check_confidence
 from .parallel import SourceHandle, check_workers, map_ordered, source_handle, workers_for_source
 from .project import ProjectedLayer
 from .runinfo import RunInfo
-from .samplers import SamplerFactory, sampler_name, check_sampler
+from .samplers import Box, SamplerFactory, sampler_name, check_sampler
 from .seeds import child_seed, job_root, make_seed
 from .stopping import StopRule
 from .weighted import (
@@ -206,9 +207,10 @@ def _integrate_region(job: _IntegrateJob, r: int) -> _RegionTotal:
     regions, areas, confidence = job.regions, job.areas, job.confidence
     rid, region = regions.ids[r], regions.planar[r]
     view = job.source.get().for_region(region)
+    in_region = inside(region, Box.of(region.bounds), job.stop.points)
     run = weighted_run(
         view,
-        lambda x, y, region=region: shapely.contains_xy(region, x, y)[:, None],
+        lambda x, y: in_region(x, y)[:, None],
         child_seed(job.streams, r),
         stop=job.stop,
         confidence=confidence,
@@ -216,6 +218,8 @@ def _integrate_region(job: _IntegrateJob, r: int) -> _RegionTotal:
         sampler=job.sampler,
         chunk=job.chunk,
         importance=job.importance,
+        # blocks wholly inside the region are counted, not sampled
+        split=view.split((), ()) if job.importance and hasattr(view, "split") else None,
     )
     truth = view.exact_total() if job.exact else None
     if run is None:  # no density near the region: nothing was sampled

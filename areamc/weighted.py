@@ -85,6 +85,8 @@ IMPORTANCE = "importance"
 #: Importance sampling from a pilot grid of density values (:func:`~areamc.density.grid_proposal`).
 GRID = "grid-importance"
 UNIFORM = "uniform"
+#: Importance sampling of only the blocks whose answers are not known exactly; the others counted whole.
+STRATA = "stratified-importance"
 #: Method of a region with no density near it.
 NONE = "none"
 #: Fewest effective points (Kish 1965) for which a scored (uniform or grid) run's normal interval is
@@ -110,6 +112,9 @@ class WeightedRun:
     ``"uniform"`` they are sums of density scores and `scale` is the box area (m²).
     `largest_weight_share` is the largest in-region score over their sum
     (``1/hits`` for hit counts; 0 when no weight was met), over the points behind the sums.
+    With ``"stratified-importance"`` the sums are hit counts over the blocks
+    left to sample (total `scale`), and `known` holds, per column, the counts
+    of the blocks answered exactly, which every estimate adds.
     """
 
     method: str
@@ -120,11 +125,14 @@ class WeightedRun:
     reason: str = "budget"
     pilot_points: int = 0
     largest_weight_share: float = 0.0
+    known: tuple[float, ...] = ()
 
     def total(self, confidence: float) -> AreaEstimate | TotalEstimate:
         """The integral of the density over the region (counts, e.g. persons)."""
         if self.method == IMPORTANCE:
             return AreaEstimate.from_counts(int(self.sums[0]), self.points, self.scale, confidence)
+        if self.method == STRATA:
+            return AreaEstimate.from_counts(int(self.sums[0]), self.points, self.scale, confidence, self.known[0])
         return mean_estimate(float(self.sums[0]), float(self.sumsq[0]), self.points, self.scale, confidence)
 
     @property
@@ -134,13 +142,15 @@ class WeightedRun:
         For importance runs every point is drawn in proportion to the weight,
         so the in-region hit count is returned.  0 when no weight was met.
         """
-        if self.method == IMPORTANCE:
+        if self.method in (IMPORTANCE, STRATA):
             return float(self.sums[0])
         total, square = float(self.sums[0]), float(self.sumsq[0])
         return total * total / square if square > 0 else 0.0
 
     def share(self, column: int, confidence: float) -> tuple[float, float, float, float]:
         """(share, stderr, low, high) of the region's weight falling in a covered set."""
+        if self.method == STRATA:
+            return self._strata_share(column, confidence)
         b = float(self.sums[0])
         if b <= 0:
             return math.nan, math.nan, math.nan, math.nan
@@ -156,13 +166,33 @@ class WeightedRun:
         return r, se, max(0.0, r - z * se), min(1.0, r + z * se)
 
 
-def _precision(method: str, scale: float, target: str, confidence: float):
+    def _strata_share(self, column: int, confidence: float) -> tuple[float, float, float, float]:
+        """The share ``(K_k + T a) / (K_0 + T b)`` with ``a, b`` the hit fractions, by the delta method.
+
+        ``a`` (covered) and ``b`` (in the region) are fractions of the same
+        `points` draws with ``a ⊂ b``, so ``Cov(a, b) = a (1 − b) / n``
+        (multinomial counts; Cochran 1977, §6.4 for the ratio's variance).
+        """
+        known_k, known_0, t, n = self.known[column], self.known[0], self.scale, self.points
+        a = float(self.sums[column]) / n if n else 0.0
+        b = float(self.sums[0]) / n if n else 0.0
+        top, bottom = known_k + t * a, known_0 + t * b
+        if bottom <= 0:
+            return math.nan, math.nan, math.nan, math.nan
+        r = top / bottom
+        var = (t / bottom) ** 2 * (a * (1 - a) - 2 * r * a * (1 - b) + r * r * b * (1 - b)) / n if n else 0.0
+        se = math.sqrt(max(var, 0.0))
+        z = z_for(confidence)
+        return r, se, max(0.0, r - z * se), min(1.0, r + z * se)
+
+
+def _precision(method: str, scale: float, target: str, confidence: float, known: tuple = ()):
     """Precision measure of a weighted run: the total's half-width, or every share's."""
 
     def measure(sums: np.ndarray, sumsq: np.ndarray, points: int):
         if points < 2 or sums[0] <= 0:
             return [(math.inf, 0.0)]
-        run = WeightedRun(method, points, scale, sums, sumsq)
+        run = WeightedRun(method, points, scale, sums, sumsq, known=known)
         if target == TOTAL:
             est = run.total(confidence)
             return [(est.half_width, est.estimate)]
@@ -229,9 +259,9 @@ def concentration(region: str, run: "WeightedRun | None", effective: float) -> C
     :data:`MIN_EFFECTIVE_POINTS` effective points (`effective`, from
     :func:`effective_points`), or when one point carries more than
     :data:`MAX_WEIGHT_SHARE` of the in-region total.  Hit-count importance
-    runs are never flagged: their Wilson interval holds for any count.
+    runs (stratified too) are never flagged: their intervals rest on counts.
     """
-    if run is None or run.method == IMPORTANCE:
+    if run is None or run.method in (IMPORTANCE, STRATA):
         return None
     if effective < MIN_EFFECTIVE_POINTS or run.largest_weight_share > MAX_WEIGHT_SHARE:
         return Concentration(region, run.method, float(effective), int(run.points), float(run.largest_weight_share))
@@ -279,6 +309,7 @@ def weighted_run(
     sampler: str | SamplerFactory = "uniform",
     chunk: int = DEFAULT_CHUNK,
     importance: bool = True,
+    split: tuple | None = None,
 ) -> WeightedRun | None:
     """Sample the region of `view` weighted by its density.
 
@@ -304,11 +335,19 @@ def weighted_run(
         offers them, else from a pilot grid of its density values
         (:func:`~areamc.density.grid_proposal`, sized by ``stop.point_budget``).
         False: plain uniform sampling in the region's bounding box.
+    split : (Proposal, known counts), optional
+        From the view's ``split(zones, ks)`` (blocks): draw only the blocks
+        whose answers are not known exactly and add the known counts per
+        column (method ``"stratified-importance"``).  Used with importance,
+        without a claim (whose verdicts need plain hit counts), and when some
+        block is known; otherwise the run is plain importance sampling.
 
     Returns
     -------
     WeightedRun, or None when the density is zero on every unit near the region.
     """
+    if split is not None and importance and claim is None and split[1][0] > 0:
+        return _split_run(split, classify, seed, stop, confidence, target, sampler, chunk)
     proposal = view.proposal() if importance else None
     if importance and proposal is None:
         proposal = grid_proposal(view, stop.point_budget)  # no units to draw: a pilot grid of density values
@@ -341,6 +380,20 @@ def weighted_run(
     else:
         share = largest.since(run.pilot_points) / in_region if in_region > 0 else 0.0
     return WeightedRun(method, run.points, scale, run.sums, run.sumsq, run.reason, run.pilot_points, share)
+
+
+def _split_run(split, classify, seed, stop, confidence, target, sampler, chunk) -> WeightedRun:
+    """Importance sampling of the blocks left after the known ones, which every estimate adds (:data:`STRATA`)."""
+    proposal, known_counts = split
+    known = tuple(float(v) for v in known_counts)
+    if proposal.total <= 0:  # every block near the region is answered exactly: nothing to sample
+        zeros = np.zeros(len(known), dtype=np.int64)
+        return WeightedRun(STRATA, 0, 0.0, zeros, zeros, NONE, 0, 0.0, known)
+    stopper = Stopper(stop, precision=_precision(STRATA, proposal.total, target, confidence, known))
+    run = accumulate(make_sampler(sampler, seed, proposal).random, classify, stopper, chunk=chunk)
+    in_region = float(run.sums[0])
+    return WeightedRun(STRATA, run.points, proposal.total, run.sums, run.sumsq, run.reason, run.pilot_points,
+                       1.0 / in_region if in_region > 0 else 0.0, known)
 
 
 class _Largest:

@@ -141,7 +141,7 @@ def test_blocks__population_rows_hold_the_areal_weighting_shares(blocks_doc):
         assert r["population_share_ci_low"] <= share <= r["population_share_ci_high"], (r, share)
         assert abs(r["population_share"] - share) <= 4 * r["population_share_stderr"]
         assert r["covered_population"] == pytest.approx(r["population_share"] * r["population"], rel=1e-12)
-        assert r["population_method"] == "importance"
+        assert r["population_method"] == "stratified-importance"  # blocks inside a district and its zones counted whole
         assert r["population_verdict"] is None  # no claim
     assert doc["density"]["kind"] == "blocks"
     # population shares are not area shares on this data (the towns are where the zones are)

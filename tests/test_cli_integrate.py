@@ -108,8 +108,9 @@ def check_rows(rows, refs, rel_exact):
         if r["method"] == "uniform":
             # a mean estimate: z is the deviation from the exact total in standard errors (common practice)
             assert r["z"] == pytest.approx((r["estimate"] - r["exact"]) / r["stderr"], rel=1e-9)
-        elif r["estimate"] != r["exact"]:
+        elif abs(r["estimate"] - r["exact"]) > 1e-9 * ref:
             # importance rows: a binomial mid-p score (Lancaster 1961), signed like the deviation
+            # (rows whose blocks were all counted whole agree with the overlay to rounding: z = 0)
             assert np.sign(r["z"]) == np.sign(r["estimate"] - r["exact"])
 
 
@@ -125,13 +126,17 @@ def sample_block_sums():
 # --- blocks ------------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("extra, method", [([], "importance"), (["--no-importance"], "uniform")])
+# Each sample block lies inside one district, so by default every block is counted whole (no point
+# is needed: "stratified-importance" with 0 points); with --no-importance the blocks are sampled.
+@pytest.mark.parametrize("extra, method", [([], "stratified-importance"), (["--no-importance"], "uniform")])
 def test_blocks__sample_districts_total_their_blocks(capsys, extra, method):
     doc = run_json(capsys, [*DISTRICTS, *BLOCKS, *extra, "-n", "40000", "--seed", "5", "--confidence", CONF])
     refs = sample_block_sums()
     assert sum(refs.values()) > 100_000  # the sample holds about 150,000 people (sample_data/README.md)
     check_rows(doc["results"], refs, rel_exact=1e-6)
     assert {r["method"] for r in doc["results"]} == {method}
+    if method == "stratified-importance":  # every block counted whole: the exact total, no spread
+        assert all(r["points"] == 0 and r["stderr"] == 0 for r in doc["results"])
     assert doc["density"]["kind"] == "blocks" and doc["density"]["count_field"] == "population"
     assert doc["seed"] == 5 and doc["confidence"] == 0.999
 
@@ -155,7 +160,8 @@ def test_blocks__region_file_cutting_blocks_and_units(capsys, tmp_path):
         # --units km2: region_area in km², mean_density per km² (1 km² = 1e6 m²)
         assert r["region_area"] == pytest.approx(g.area / 1e6, rel=1e-9)
         assert r["mean_density"] == pytest.approx(r["estimate"] / r["region_area"], rel=1e-9)
-        assert r["method"] == "importance" and 0 < r["estimate"]
+        # blocks wholly inside a region are counted whole, the rest drawn by their counts
+        assert r["method"] == "stratified-importance" and 0 < r["estimate"] and r["points"] == 60_000
 
 
 def test_blocks__end_to_end_subprocess(tmp_path):
@@ -170,7 +176,7 @@ def test_blocks__end_to_end_subprocess(tmp_path):
     check_rows(doc["results"], refs, rel_exact=1e-6)
 
 
-@pytest.mark.parametrize("extra, method", [([], "importance"), (["--no-importance"], "uniform")])
+@pytest.mark.parametrize("extra, method", [([], "stratified-importance"), (["--no-importance"], "uniform")])
 def test_blocks__relative_tolerance_two_stages(capsys, extra, method):
     # --tolerance 2%: a pilot to within 2x the target, then a fresh final batch sized from it; the
     # final half-width is near 2% of the total, random, and may exceed it by a few percent
@@ -179,6 +185,9 @@ def test_blocks__relative_tolerance_two_stages(capsys, extra, method):
     check_rows(doc["results"], sample_block_sums(), rel_exact=1e-6)
     for r in doc["results"]:
         assert r["method"] == method
+        if method == "stratified-importance":  # each sample block lies in one district: all counted whole
+            assert r["stop_reason"] == "none" and r["points"] == r["pilot_points"] == 0
+            continue
         assert r["stop_reason"] == "target" and r["pilot_points"] > 0
         assert (r["ci_high"] - r["ci_low"]) / 2 <= 1.3 * 0.02 * r["estimate"]
 

@@ -31,7 +31,7 @@ from areamc.samplers import Box, make_sampler
 from areamc.seeds import child_seed, make_seed
 from areamc.sequential import MEETS, UNDECIDED, verdict
 from areamc.stopping import StopRule
-from areamc.weighted import GRID, IMPORTANCE, SHARES, TOTAL, UNIFORM, weighted_run
+from areamc.weighted import GRID, IMPORTANCE, SHARES, STRATA, TOTAL, UNIFORM, weighted_run
 
 PLANE = "+proj=laea +lat_0=47 +lon_0=10 +datum=WGS84 +units=m +no_defs"
 CONF = 0.999
@@ -287,5 +287,5 @@ def test_integrate__concentrated_density_uniform__warns_with_the_number(recwarn)
     # importance sampling draws where the weight is: no warning, and every point counts
     recwarn.clear()
     report = integrate_density(regions, source, stop=StopRule(points=2_000), seed=3)
-    assert report.rows[0].method == IMPORTANCE
+    assert report.rows[0].method == STRATA  # the blocks inside the district counted whole, the rest drawn
     assert not [w for w in recwarn if "too concentrated" in str(w.message)]
