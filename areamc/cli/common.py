@@ -269,7 +269,9 @@ def add_sampling_options(parser: argparse.ArgumentParser, tolerance: str = "area
                         help=f"points per chunk, bounds memory; fixed-count results do not depend on it, while a "
                         f"--tolerance run stops only at chunk ends (default {DEFAULT_CHUNK})")
     parser.add_argument("--sampler", choices=sorted(SAMPLERS), default="uniform",
-                        help="how points are drawn (default uniform)")
+                        help="how points are drawn: uniform (default; every command), or for area and "
+                        "coverage sobol (scrambled Sobol points) or stratified (cells wholly inside counted "
+                        "exactly, points only where an edge passes); the last two give Student-t intervals")
     parser.add_argument("--point-cap", type=positive_int, default=POINT_CAP, metavar="N",
                         help=f"refuse --points or --max-points above N per estimate (default {POINT_CAP:,}); "
                         "raise it knowingly for very long runs")
