@@ -1,10 +1,22 @@
 """The overlap job: pairwise overlaps of zones and the layer's multiplicity profile.
 
 Candidate pairs come from a shapely ``STRtree`` on the zones' bounding boxes;
-pairs whose boxes do not meet are never sampled, and a pair is sampled only
-inside the intersection of its two boxes.  The multiplicity profile (area
-covered by exactly k and by at least k zones) is sampled in the bounding box
-of all zones, with each point's count taken from a :class:`~areamc.classify.GridIndex`.
+pairs whose boxes do not meet are never sampled.  Two ways of sampling them
+(parameter ``pair_sampling``, docs/methods.md §9):
+
+* ``"shared"``: one sample of points thrown uniformly into the layer's
+  bounding box (the box the multiplicity profile uses; for two layers, the
+  intersection of their boxes).  Each point's zones come from one
+  :class:`~areamc.classify.GridIndex`, and every pair of zones holding a
+  point gets a hit, so every pair's count and the profile come from one run
+  of the engine;
+* ``"per-pair"``: each pair sampled on its own inside the intersection of
+  its two boxes, and the profile in a run of its own.
+
+``"auto"`` (the default) takes the shared sample for an absolute tolerance
+and per-pair boxes otherwise (:func:`pair_sampling_for`).  The multiplicity profile
+(area covered by exactly k and by at least k zones) is sampled in the
+bounding box of all zones, each point's count taken from a grid index.
 All areas are m² of the equal-area plane.
 """
 
@@ -17,20 +29,22 @@ import numpy as np
 import shapely
 
 from .checks import flagged
-from .classify import GridIndex
-from .engine import DEFAULT_CHUNK, hit_or_miss
+from .checks import binomial_deviation
+from .classify import GUESS_POINTS, GridIndex
+from .engine import DEFAULT_CHUNK, accumulate, hit_or_miss
 from .estimate import AreaEstimate, area_precision
 from .exact import at_least, intersection_areas, multiplicity_areas, planar_area
-from .intervals import check_confidence
-from .parallel import check_workers, map_ordered
+from .intervals import check_confidence, wilson_interval
+from .parallel import SPAN_UNIT, check_workers, map_ordered
 from .project import ProjectedLayer, transform_geometries, transformer
 from .errors import OptionError
 from .runinfo import RunInfo
 from .samplers import Box, SamplerFactory, make_sampler, sampler_name, check_sampler
 from .seeds import child_seed, job_root, make_seed
-from .stopping import StopRule, Stopper
+from .stopping import BUDGET, StopRule, Stopper
 
-__all__ = ["OverlapRow", "MultiplicityRow", "OverlapReport", "candidate_pairs", "estimate_overlaps", "overlap_geometries"]
+__all__ = ["OverlapRow", "MultiplicityRow", "OverlapReport", "candidate_pairs", "estimate_overlaps", "overlap_geometries",
+           "pair_sampling_for", "zone_pairs", "PAIR_SAMPLINGS", "AUTO", "SHARED", "PER_PAIR"]
 
 #: Exact profile status tokens.
 COMPUTED = "computed"
@@ -39,6 +53,15 @@ TIMED_OUT = "timed-out"
 
 _PAIR_STREAM = 0
 _PROFILE_STREAM = 1
+_SHARED_STREAM = 2
+
+#: How pairs are sampled (parameter ``pair_sampling``): chosen from the stop rule,
+AUTO = "auto"
+#: one sample over the layer's box for every pair and the profile,
+SHARED = "shared"
+#: or each pair in its own box (and the profile in a run of its own).
+PER_PAIR = "per-pair"
+PAIR_SAMPLINGS = (AUTO, SHARED, PER_PAIR)
 
 
 @dataclass(frozen=True)
@@ -110,9 +133,12 @@ class OverlapReport:
     candidates: int
     run: RunInfo
     exact_profile: str
+    #: How the pairs were sampled: :data:`SHARED` or :data:`PER_PAIR`.
+    pair_sampling: str = PER_PAIR
 
     def metadata(self) -> dict:
-        return {**self.run.to_dict(), "candidate_pairs": self.candidates, "exact_multiplicity": self.exact_profile}
+        return {**self.run.to_dict(), "candidate_pairs": self.candidates, "exact_multiplicity": self.exact_profile,
+                "pair_sampling": self.pair_sampling}
 
 
 def candidate_pairs(a: ProjectedLayer, b: ProjectedLayer | None = None) -> np.ndarray:
@@ -134,6 +160,32 @@ def candidate_pairs(a: ProjectedLayer, b: ProjectedLayer | None = None) -> np.nd
     return pairs[:, order]
 
 
+def pair_sampling_for(pair_sampling: str, stop: StopRule) -> str:
+    """The way pairs are sampled: :data:`SHARED` or :data:`PER_PAIR`, resolving :data:`AUTO` from `stop`.
+
+    :data:`AUTO` takes the shared sample for an absolute tolerance (m²):
+    one pilot serves every pair, where per-pair boxes spend at least a chunk
+    of pilot points on each pair.  It takes per-pair boxes for a fixed
+    number of points (``points`` per pair, as every other job counts points
+    per estimate; at equal total points they are as precise on large
+    overlaps and about twice as precise on small ones, unless the zones
+    overlap densely) and for a relative tolerance (a small overlap fills a
+    tiny part of the layer's box, so the shared sample would need far more
+    points to meet it).  docs/methods.md §9 has the figures.
+
+    Raises
+    ------
+    OptionError
+        For anything but the names in :data:`PAIR_SAMPLINGS` (parameter ``pair_sampling``).
+    """
+    if pair_sampling not in PAIR_SAMPLINGS:
+        raise OptionError(f"{{param}}: choose one of {', '.join(PAIR_SAMPLINGS)}, got {pair_sampling!r}",
+                          param="pair_sampling")
+    if pair_sampling != AUTO:
+        return pair_sampling
+    return SHARED if stop.absolute is not None else PER_PAIR
+
+
 def estimate_overlaps(
     a: ProjectedLayer,
     b: ProjectedLayer | None = None,
@@ -148,6 +200,7 @@ def estimate_overlaps(
     profile: bool = True,
     exact_time_limit_s: float = 10.0,
     workers: int | None = 1,
+    pair_sampling: str = AUTO,
 ) -> OverlapReport:
     """Estimate every pairwise overlap and (for one layer) the multiplicity profile.
 
@@ -156,10 +209,14 @@ def estimate_overlaps(
     a, b : ProjectedLayer
         Zones in one equal-area plane (metres); with `b` only cross pairs.
     stop : StopRule
-        Points per pair (and for the profile), or a precision target.
+        With per-pair sampling, points per pair (and for the profile), or a
+        precision target each pair meets; with the shared sample, points of
+        that one sample, or a precision target every pair (and every profile
+        column) meets.
     seed : int or SeedSequence, optional
         Root seed; pair ``(i, j)`` samples from the stream keyed
-        ``("overlap", 0, i, j)``, the profile from ``("overlap", 1)``.
+        ``("overlap", 0, i, j)``, the profile from ``("overlap", 1)``, the
+        shared sample from ``("overlap", 2)``.
     sampler : str or sampler class
         See :func:`~areamc.samplers.make_sampler`.
     min_share : float
@@ -171,8 +228,15 @@ def estimate_overlaps(
     exact_time_limit_s : float
         Seconds allowed for the exact profile; beyond, its status is "timed-out".
     workers : int or None
-        Worker processes pairs (and the profile) are shared among (None: every usable core); the
-        rows are identical, bit for bit, for any number (:func:`~areamc.parallel.map_ordered`).
+        Worker processes (None: every usable core).  Per-pair sampling shares
+        the pairs (and the profile) among them; the shared sample, with a
+        fixed number of points and no time limit, is cut into spans of
+        stream positions whose integer counts are added.  A shared sample
+        under a tolerance or a time limit runs in this process, since its
+        stop is decided chunk by chunk, in order.  Rows are identical, bit
+        for bit, for any number (:func:`~areamc.parallel.map_ordered`).
+    pair_sampling : str
+        :data:`SHARED`, :data:`PER_PAIR` or :data:`AUTO` (see :func:`pair_sampling_for`).
 
     Returns
     -------
@@ -185,6 +249,7 @@ def estimate_overlaps(
     if not 0.0 <= min_share <= 1.0:
         raise OptionError(f"{{param}}: must lie in [0, 1], got {min_share!r}", param="min_share")
     workers = check_workers(workers)
+    method = pair_sampling_for(pair_sampling, stop)
     root = make_seed(seed)
     streams = job_root(root, "overlap")
     other = a if b is None else b
@@ -197,6 +262,10 @@ def estimate_overlaps(
     job = _OverlapJob(a, other, pairs, area_a, area_b, exact_pairs, stop, confidence, streams, sampler, chunk,
                       min_share, exact, exact_time_limit_s)
     with_profile = profile and b is None
+    info = RunInfo("overlap", a.plane, confidence, int(root.entropy), sampler_name(sampler), stop, a.densify_m)
+    if method == SHARED:
+        rows, kept, multiplicity, exact_profile = _shared(job, b is None, with_profile, workers)
+        return OverlapReport(tuple(rows), tuple(kept), multiplicity, int(pairs.shape[1]), info, exact_profile, SHARED)
     # the profile, one estimate over every zone, goes first so that it does not run alone at the end
     items = ([_PROFILE_ITEM] if with_profile else []) + list(range(pairs.shape[1]))
     results = map_ordered(_overlap_item, items, workers, shared=job)
@@ -207,8 +276,7 @@ def estimate_overlaps(
     kept_pairs = [result for result in results if result is not None]
     rows = [row for row, _ in kept_pairs]
     kept = [pair for _, pair in kept_pairs]
-    info = RunInfo("overlap", a.plane, confidence, int(root.entropy), sampler_name(sampler), stop, a.densify_m)
-    return OverlapReport(tuple(rows), tuple(kept), multiplicity, int(pairs.shape[1]), info, exact_profile)
+    return OverlapReport(tuple(rows), tuple(kept), multiplicity, int(pairs.shape[1]), info, exact_profile, PER_PAIR)
 
 
 #: The item of :func:`_overlap_item` that stands for the multiplicity profile (pairs are 0, 1, ...).
@@ -281,17 +349,27 @@ def _profile(layer, stop, confidence, streams, sampler, chunk, exact, limit_s):
         Stopper(stop, precision=area_precision(box.area, confidence)),
         chunk=chunk,
     )
-    exact_k, status = None, NOT_ASKED
-    if exact:
-        exact_k = multiplicity_areas(layer.planar, deadline=time.monotonic() + limit_s)
-        status = COMPUTED if exact_k is not None else TIMED_OUT
-    hits = list(run.hits) + [0]
+    exact_k, status = _exact_profile(layer, exact, limit_s)
+    return _profile_rows(run.hits, run.points, box.area, ks, confidence, exact_k), status
+
+
+def _exact_profile(layer, exact: bool, limit_s: float):
+    """The exact exactly-k areas (m²) and their status, within `limit_s` seconds."""
+    if not exact:
+        return None, NOT_ASKED
+    exact_k = multiplicity_areas(layer.planar, deadline=time.monotonic() + limit_s)
+    return exact_k, COMPUTED if exact_k is not None else TIMED_OUT
+
+
+def _profile_rows(column_hits, points: int, box_area: float, ks, confidence: float, exact_k) -> tuple:
+    """Multiplicity rows from the hits of the at-least-k columns (`ks`) among `points` points in a box (m²)."""
+    hits = [int(h) for h in column_hits] + [0]
     rows = []
     for n, k in enumerate(ks):
         if hits[n] == 0 and k > 1:
             break
-        least = run.estimate(n, confidence)
-        only = AreaEstimate.from_counts(hits[n] - hits[n + 1], run.points, box.area, confidence)
+        least = AreaEstimate.from_counts(hits[n], points, box_area, confidence)
+        only = AreaEstimate.from_counts(hits[n] - hits[n + 1], points, box_area, confidence)
         exact_least = at_least(exact_k, int(k)) if exact_k is not None else None
         z = least.deviation(exact_least) if exact_least is not None else None
         rows.append(
@@ -304,7 +382,223 @@ def _profile(layer, stop, confidence, streams, sampler, chunk, exact, limit_s):
                 exact_area_at_least=exact_least, z=z, flagged=flagged(z),
             )
         )
-    return tuple(rows), status
+    return tuple(rows)
+
+
+# -- the shared sample -------------------------------------------------------------------------------------------
+
+def zone_pairs(point: np.ndarray, zone: np.ndarray, n_points: int,
+               per_point: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Every pair of zones that hold one point, from (point, zone) hits: ``(lower, higher)`` zone indices.
+
+    `point` and `zone` are the hits of :meth:`~areamc.classify.GridIndex.pairs`
+    (each (point, zone) once); a point in m zones gives its m(m − 1)/2 pairs,
+    so a pair appears once per point the two zones share.  Vectorised: the
+    hits of points in two zones or more are sorted by (point, zone), and each
+    hit is paired with the hits after it in its point's run.  `per_point`,
+    the zones holding each point (``bincount(point)``), may be passed when known.
+    """
+    point = np.asarray(point, dtype=np.int64)
+    zone = np.asarray(zone, dtype=np.int64)
+    if per_point is None:
+        per_point = np.bincount(point, minlength=n_points)
+    several = per_point[point] >= 2
+    if not several.any():
+        empty = np.zeros(0, dtype=np.int64)
+        return empty, empty
+    width = int(zone.max()) + 1
+    key = np.sort(point[several] * width + zone[several])
+    pt, zn = np.divmod(key, width)
+    size = per_point[pt]
+    start = np.flatnonzero(np.concatenate([[True], pt[1:] != pt[:-1]]))  # first hit of each point's run
+    rank = np.arange(pt.size) - np.repeat(start, np.diff(np.concatenate([start, [pt.size]])))
+    after = size - 1 - rank  # partners later in the run
+    first = np.repeat(np.arange(pt.size), after)
+    step = np.arange(first.size) - np.repeat(np.cumsum(after) - after, after) + 1
+    return zn[first], zn[first + step]
+
+
+@dataclass(frozen=True)
+class _SharedCount:
+    """What counting the shared sample needs (sent once to each worker process; plane metres).
+
+    `index` holds the zones counted; `left` and `right` map an index zone to
+    its position in the first and in the other layer (-1 where it is not in
+    that layer); `codes` are the candidate pairs ``i * n_other + j``, sorted;
+    `ks` the at-least-k columns (the profile's, or ``[1]``).  `table`, when
+    the index holds at most :data:`_TABLE_ZONES` zones, gives the candidate
+    number of each pair of index zones ``lo * len(left) + hi`` (-1 for
+    none), which is faster than searching `codes` (2,000 zones of mean
+    cover 4, 4 M points: 4.9 s of counting against 6.8 s, by cProfile).
+    """
+
+    index: GridIndex
+    left: np.ndarray
+    right: np.ndarray
+    n_other: int
+    codes: np.ndarray
+    ks: np.ndarray
+    table: np.ndarray | None
+
+    @classmethod
+    def build(cls, index: GridIndex, left: np.ndarray, right: np.ndarray, n_other: int, codes: np.ndarray,
+              ks: np.ndarray) -> "_SharedCount":
+        table = None
+        n = len(left)
+        if n <= _TABLE_ZONES and len(codes):
+            # candidate (i, j) back to index zones: positions of i in `left` and of j in `right`
+            where_left = np.full(int(left.max()) + 1, -1, dtype=np.int64)
+            where_left[left[left >= 0]] = np.flatnonzero(left >= 0)
+            where_right = np.full(int(right.max()) + 1, -1, dtype=np.int64)
+            where_right[right[right >= 0]] = np.flatnonzero(right >= 0)
+            i, j = np.divmod(codes, n_other)
+            table = np.full(n * n, -1, dtype=np.int32)
+            table[where_left[i] * n + where_right[j]] = np.arange(len(codes), dtype=np.int32)
+        return cls(index, left, right, n_other, codes, ks, table)
+
+    def count(self, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Points (plane metres) in both zones of each candidate pair, and the at-least-k columns of every point."""
+        point, zone = self.index.pairs(x, y)
+        per_point = np.bincount(point, minlength=len(x))
+        columns = per_point[:, None] >= self.ks[None, :]
+        counts = np.zeros(len(self.codes), dtype=np.int64)
+        lo, hi = zone_pairs(point, zone, len(x), per_point)
+        if not lo.size or not len(self.codes):
+            return counts, columns
+        if self.table is not None:
+            at = self.table[lo * len(self.left) + hi]
+            at = at[at >= 0]
+        else:
+            lo, hi = self.left[lo], self.right[hi]
+            keep = (lo >= 0) & (hi >= 0)
+            code = lo[keep] * self.n_other + hi[keep]
+            at = np.searchsorted(self.codes, code)
+            found = at < len(self.codes)
+            found[found] = self.codes[at[found]] == code[found]
+            at = at[found]
+        counts += np.bincount(at, minlength=len(self.codes))
+        return counts, columns
+
+
+#: Most zones in a shared sample's index for which pairs are looked up in a table (2,896² int32 entries: 32 MiB).
+_TABLE_ZONES = 2896
+
+
+class _Tally:
+    """The engine's scoring function for the shared sample: it returns the at-least-k columns and keeps the
+    pair counts (integers, exact in any order) beside them, started afresh for a final batch."""
+
+    def __init__(self, state: _SharedCount) -> None:
+        self.state = state
+        self.counts = np.zeros(len(state.codes), dtype=np.int64)
+
+    def __call__(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+        counts, columns = self.state.count(x, y)
+        self.counts += counts
+        return columns
+
+    def restart(self, size: int) -> int:
+        """Between a pilot and its final batch: the final batch's counts start from zero."""
+        self.counts[:] = 0
+        return size
+
+
+def _shared(job: _OverlapJob, one_layer: bool, with_profile: bool, workers: int):
+    """Every pair's row and the profile from one sample in the layer's box (for two layers, the
+    intersection of their boxes): ``(rows, pairs, multiplicity, exact profile status)``."""
+    a, other, pairs, stop, confidence = job.a, job.other, job.pairs, job.stop, job.confidence
+    n_pairs = pairs.shape[1]
+    if not n_pairs and not with_profile:
+        return [], [], (), NOT_ASKED
+    box = Box.of(shapely.total_bounds(a.planar))
+    if one_layer:
+        used = np.arange(len(a.planar)) if with_profile else np.unique(pairs)
+        zones, left, right = a.planar[used], used, used
+    else:
+        box = box.intersection(Box.of(shapely.total_bounds(other.planar)))  # holds every cross pair's overlap
+        ua, ub = np.unique(pairs[0]), np.unique(pairs[1])
+        zones = np.concatenate([a.planar[ua], other.planar[ub]])
+        left = np.concatenate([ua, np.full(ub.size, -1)])
+        right = np.concatenate([np.full(ua.size, -1), ub])
+    index = GridIndex(zones, box, points=stop.points or GUESS_POINTS)
+    ks = np.arange(1, max(index.max_count, 1) + 1) if with_profile else np.array([1])
+    n_other = len(other.planar)
+    state = _SharedCount.build(index, left.astype(np.int64), right.astype(np.int64), n_other,
+                               (pairs[0] * n_other + pairs[1]).astype(np.int64), ks)
+    seed = child_seed(job.streams, _SHARED_STREAM)
+    if stop.adaptive or stop.time_s is not None or workers == 1:
+        points, counts, hits, reason, pilot = _shared_run(state, make_sampler(job.sampler, seed, box), stop,
+                                                          confidence, with_profile, job.chunk)
+    else:
+        size = SPAN_UNIT * max(1, -(-stop.points // (4 * workers * SPAN_UNIT)))
+        spans = [(first, min(size, stop.points - first)) for first in range(0, stop.points, size)]
+        parts = map_ordered(_shared_span, spans, workers, shared=(state, job.sampler, seed, box, job.chunk, stop))
+        points, reason, pilot = stop.points, BUDGET, 0
+        counts = np.sum([c for c, _ in parts], axis=0, dtype=np.int64)
+        hits = np.sum([h for _, h in parts], axis=0, dtype=np.int64)
+    rows, kept = _shared_rows(job, box, points, counts, reason, pilot)
+    multiplicity, status = (), NOT_ASKED
+    if with_profile:
+        exact_k, status = _exact_profile(a, job.exact, job.exact_time_limit_s)
+        multiplicity = _profile_rows(hits, points, box.area, ks, confidence, exact_k)
+    return rows, kept, multiplicity, status
+
+
+def _shared_run(state: _SharedCount, sampler, stop: StopRule, confidence: float, with_profile: bool, chunk: int):
+    """One run of the engine over the shared sample: ``(points, pair counts, column hits, stop reason, pilot)``.
+
+    A precision target is judged on every candidate pair's Wilson half-width
+    (and on every profile column), all in the one box.
+    """
+    tally = _Tally(state)
+    box_area = sampler.domain.area
+    columns = area_precision(box_area, confidence)
+
+    def precision(sums, sumsq, points):
+        low, high = wilson_interval(tally.counts, points, confidence)
+        pairs = zip((box_area * (high - low) / 2).tolist(), (box_area * tally.counts / points).tolist())
+        return (columns(sums, sumsq, points) if with_profile else []) + list(pairs)
+
+    run = accumulate(sampler.random, tally, Stopper(stop, precision=precision), chunk=chunk, on_final=tally.restart)
+    return run.points, tally.counts, run.sums, run.reason, run.pilot_points
+
+
+def _shared_span(shared, span) -> tuple[np.ndarray, np.ndarray]:
+    """Pair counts and column hits of the stream positions ``first .. first + n`` of the shared sample (any process)."""
+    state, kind, seed, box, chunk, stop = shared
+    first, n = span
+    sampler = make_sampler(kind, seed, box)
+    sampler.fast_forward(first)
+    tally = _Tally(state)
+    run = accumulate(sampler.random, tally, Stopper(StopRule(points=n, point_cap=stop.point_cap)), chunk=chunk)
+    return tally.counts, run.sums
+
+
+def _shared_rows(job: _OverlapJob, box: Box, points: int, counts: np.ndarray, reason: str, pilot: int):
+    """The rows of the pairs counted in the shared sample, and their ``(i, j)``, after `min_share`."""
+    a, other, confidence = job.a, job.other, job.confidence
+    z_all = None
+    if job.exact_pairs is not None:
+        z_all = np.atleast_1d(binomial_deviation(counts, points, job.exact_pairs / box.area))
+    # every pair shares the points and the box, so pairs with the same count share their estimate
+    estimates = {h: AreaEstimate.from_counts(h, points, box.area, confidence) for h in np.unique(counts).tolist()}
+    rows, kept = [], []
+    for n, (i, j) in enumerate(job.pairs.T.tolist()):
+        est = estimates[int(counts[n])]
+        share_a, share_b = float(est.estimate / job.area_a[i]), float(est.estimate / job.area_b[j])
+        if max(share_a, share_b) < job.min_share:
+            continue
+        planar = float(job.exact_pairs[n]) if job.exact_pairs is not None else None
+        z = float(z_all[n]) if z_all is not None else None
+        rows.append(OverlapRow(
+            id_a=a.ids[i], id_b=other.ids[j], feature_index_a=a.source.indices[i],
+            feature_index_b=other.source.indices[j], estimate=est.estimate, stderr=est.stderr,
+            ci_low=est.ci_low, ci_high=est.ci_high, share_a=share_a, share_b=share_b,
+            points=est.points, hits=est.hits, box_area=est.box_area, exact_planar=planar,
+            z=z, flagged=flagged(z), stop_reason=reason, pilot_points=pilot,
+        ))
+        kept.append((i, j))
+    return rows, kept
 
 
 def overlap_geometries(report: OverlapReport, a: ProjectedLayer, b: ProjectedLayer | None = None,

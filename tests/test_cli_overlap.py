@@ -42,7 +42,7 @@ from shapely.geometry.polygon import orient
 
 from areamc.cli import main
 
-from conftest import STEP_DEG, run_cli, run_json, to_plane, mid_p_z
+from conftest import STEP_DEG, assert_refused, run_cli, run_json, to_plane, mid_p_z
 
 ROOT = Path(__file__).resolve().parents[1]
 GPKG = ROOT / "sample_data" / "vale_county.gpkg"
@@ -406,3 +406,65 @@ def test_overlap__second_file_may_follow_options(capsys):
     later = run_json(capsys, ["overlap", str(GPKG), "--layer", "service_zones", str(GPKG), "--other-layer",
                               "districts", "-n", "2000", "--seed", "4"])
     assert first["results"] and later["results"] == first["results"]
+
+
+# --- --pair-sampling ------------------------------------------------------------------------------------------
+
+
+def layer_box_area(planar) -> float:
+    """Area (m²) of the bounding box of all zones, by shapely: the shared sample's box."""
+    x0, y0, x1, y1 = shapely.total_bounds(planar)
+    return (x1 - x0) * (y1 - y0)
+
+
+def test_overlap__shared_sample_pairs_and_profile_against_shapely(capsys, service_zones):
+    n = 200_000
+    doc = run_json(capsys, ["overlap", *ZONES, "-n", str(n), "--seed", "3", "--confidence", "0.999",
+                            "--pair-sampling", "shared"])
+    assert doc["pair_sampling"] == "shared"
+    ids, geoms, crs = service_zones
+    planar = to_plane(geoms, crs, doc)
+    area = dict(zip(ids, shapely.area(planar)))
+    check_rows(doc["results"], exact_pair_areas(ids, planar), area, area)
+    box_area = layer_box_area(planar)
+    for r in doc["results"]:  # one sample of n points in the layer's box for every pair
+        assert r["points"] == n and r["box_area"] == pytest.approx(box_area, rel=1e-6)
+    profile = {m["k"]: m for m in doc["multiplicity"]}
+    for k in (1, 2):  # at least k zones: the union of all k-fold intersections (common practice)
+        least = shapely.union_all([shapely.intersection_all(list(c)) for c in itertools.combinations(planar, k)]).area
+        assert profile[k]["area_at_least_ci_low"] <= least <= profile[k]["area_at_least_ci_high"]
+
+
+def test_overlap__shared_sample_is_named_in_the_header(capsys):
+    rc, out, err = run_cli(capsys, ["overlap", *ZONES, "-n", "20000", "--seed", "3", "--pair-sampling", "shared",
+                                    "-q", "--no-profile"])
+    assert rc == 0, err
+    assert "whose geometries meet; counted in one shared sample of 20,000 points over the layer's box" in out
+    rc, out, _ = run_cli(capsys, ["overlap", *ZONES, "-n", "2000", "--seed", "3", "-q", "--no-profile"])
+    assert rc == 0 and "shared sample" not in out  # per pair by default for a fixed --points
+
+
+def test_overlap__shared_sample_identical_for_any_workers_and_chunk(capsys):
+    argv = ["overlap", *ZONES, "-n", "150000", "--seed", "8", "--pair-sampling", "shared"]
+    one = run_json(capsys, [*argv, "--workers", "1"])
+    two = run_json(capsys, [*argv, "--workers", "2", "--chunk", "5000"])
+    assert one["results"] and two["results"] == one["results"]
+    assert two["multiplicity"] == one["multiplicity"]
+
+
+@pytest.mark.parametrize("extra, expected", [
+    (["-n", "2000"], "per-pair"),
+    (["--tolerance", "1", "--units", "km2"], "shared"),  # absolute: 1 km²
+    (["--tolerance", "5%"], "per-pair"),
+    (["--tolerance", "5%", "--pair-sampling", "shared", "--max-points", "300000"], "shared"),
+])
+def test_overlap__auto_pair_sampling_follows_the_stop_rule(capsys, extra, expected):
+    doc = run_json(capsys, ["overlap", *ZONES, "--seed", "2", "--no-profile", "--no-exact", *extra])
+    assert doc["pair_sampling"] == expected
+    assert doc["results"]
+
+
+def test_overlap__unknown_pair_sampling_is_refused(capsys, tmp_path):
+    zones = shutil.copy(GPKG, tmp_path / "zones.gpkg")
+    assert_refused(capsys, ["overlap", zones, "--layer", "service_zones", "--pair-sampling", "each", "-n", "100",
+                            "--output", tmp_path / "pairs.json"], r"--pair-sampling", tmp_path)

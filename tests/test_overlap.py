@@ -31,10 +31,17 @@ import pytest
 import shapely
 from shapely.geometry import Point, Polygon, box
 
+from scipy import stats
+
+from areamc.engine import DEFAULT_CHUNK
+from areamc.errors import OptionError
+from areamc.samplers import Box, make_sampler
+from areamc.seeds import child_seed, job_root, make_seed
 from areamc.stopping import StopRule
 from areamc.exact import multiplicity_areas
 from areamc.load import layer_from_geometries
-from areamc.overlap import candidate_pairs, estimate_overlaps, overlap_geometries
+from areamc.overlap import (AUTO, PER_PAIR, SHARED, candidate_pairs, estimate_overlaps, overlap_geometries,
+                            pair_sampling_for, zone_pairs)
 from areamc.project import project_layers
 from areamc.zones import geodesic_circle, zones_from_points
 from conftest import mid_p_z
@@ -71,9 +78,11 @@ def mixed():
     return layer
 
 
-@pytest.fixture(scope="module")
-def mixed_report(mixed):
-    return estimate_overlaps(mixed, stop=StopRule(points=40_000), confidence=CONF, seed=20260315)
+@pytest.fixture(scope="module", params=[SHARED, PER_PAIR])
+def mixed_report(request, mixed):
+    """The mixed layer's report, from one shared sample (40,000 points) and from 40,000 points per pair."""
+    return estimate_overlaps(mixed, stop=StopRule(points=40_000), confidence=CONF, seed=20260315,
+                             pair_sampling=request.param)
 
 
 def exact_pairs(a, b=None) -> dict[tuple[str, str], float]:
@@ -213,14 +222,15 @@ def test_overlaps__two_layers_give_cross_pairs_only():
 def test_overlaps__min_share_drops_small_pairs_only(mixed, mixed_report):
     threshold = 0.3
     kept = estimate_overlaps(mixed, stop=StopRule(points=40_000), confidence=CONF, seed=20260315,
-                             min_share=threshold, profile=False)
+                             min_share=threshold, profile=False, pair_sampling=mixed_report.pair_sampling)
     expected = [r for r in mixed_report.rows if max(r.share_a, r.share_b) >= threshold]
     assert 0 < len(expected) < len(mixed_report.rows)  # the threshold really splits the rows
-    assert kept.rows == tuple(expected)  # per-pair streams: same points, same numbers
+    assert kept.rows == tuple(expected)  # same streams with or without the profile: same points, same numbers
 
 
 def test_overlaps__chunk_size_does_not_change_results(mixed, mixed_report):
-    small = estimate_overlaps(mixed, stop=StopRule(points=40_000), confidence=CONF, seed=20260315, chunk=3_000)
+    small = estimate_overlaps(mixed, stop=StopRule(points=40_000), confidence=CONF, seed=20260315, chunk=3_000,
+                              pair_sampling=mixed_report.pair_sampling)
     assert small.rows == mixed_report.rows
     assert small.multiplicity == mixed_report.multiplicity
 
@@ -269,7 +279,8 @@ def three_disks():
     return [geodesic_circle(lon, lat, 15_000.0) for lon, lat in ((10.0, 45.0), (10.25, 45.0), (10.125, 45.15))]
 
 
-def test_multiplicity__three_disks_against_inclusion_exclusion():
+@pytest.mark.parametrize("pair_sampling", [SHARED, PER_PAIR])
+def test_multiplicity__three_disks_against_inclusion_exclusion(pair_sampling):
     (layer,) = project((["d1", "d2", "d3"], three_disks()))
     d = list(layer.planar)
     s1 = sum(z.area for z in d)
@@ -286,7 +297,8 @@ def test_multiplicity__three_disks_against_inclusion_exclusion():
     for k in (1, 2, 3):
         assert arrangement[k] == pytest.approx(exact[k], rel=1e-7)
 
-    report = estimate_overlaps(layer, stop=StopRule(points=400_000), confidence=CONF, seed=99)
+    report = estimate_overlaps(layer, stop=StopRule(points=400_000), confidence=CONF, seed=99,
+                               pair_sampling=pair_sampling)
     assert [m.k for m in report.multiplicity] == [1, 2, 3]
     assert report.exact_profile == "computed"
     for m in report.multiplicity:
@@ -393,3 +405,167 @@ def test_overlap_geometries__two_layers_and_a_chosen_crs():
         expected = shapely.intersection(a.planar[i], b.planar[j]).area
         assert plane_geom.area == pytest.approx(expected, rel=1e-9)
         assert lonlat_geom.area == pytest.approx(expected, rel=1e-9)
+
+
+# --- the shared sample: every pair counted from one sample over the layer's box ---------------------------------
+#
+# The points are the stream keyed ("overlap", 2) of docs/methods.md §4, drawn again here; each zone is tested
+# with shapely.contains_xy and pair counts are formed by numpy (a product of 0/1 matrices), independently of
+# areamc's grid index and pair emission.  Interval coverage over seeds is held to a binomial band from
+# scipy.stats.binom (common practice).
+
+
+def crowd_zones(n: int = 40, seed: int = 5, width: float = 0.4, height: float = 0.3):
+    """`n` lon/lat ellipses (radii 0.015 to 0.05 degrees) scattered over `width` x `height` degrees near 45N."""
+    rng = np.random.default_rng(seed)
+    centres = np.column_stack([rng.uniform(10.0, 10.0 + width, n), rng.uniform(45.0, 45.0 + height, n)])
+    radii = rng.uniform(0.015, 0.05, n)
+    return [Point(x, y).buffer(r, quad_segs=16) for (x, y), r in zip(centres, radii)]
+
+
+@pytest.fixture(scope="module")
+def crowd():
+    (layer,) = project(([f"c{i}" for i in range(40)], crowd_zones()))
+    return layer
+
+
+def shared_points(seed: int, n: int, box_bounds):
+    """The shared sample's `n` points, drawn again from its documented stream (methods §4: key (2, 2))."""
+    sampler = make_sampler("uniform", child_seed(job_root(make_seed(seed), "overlap"), 2), Box.of(box_bounds))
+    return sampler.random(n)
+
+
+def inside_matrix(zones, x, y) -> np.ndarray:
+    """0/1 matrix (zones x points) of shapely.contains_xy, zone by zone."""
+    return np.array([shapely.contains_xy(z, x, y) for z in zones], dtype=np.int64)
+
+
+def test_zone_pairs__every_pair_of_zones_holding_a_point():
+    # point 0 in zones {4, 1, 7}, point 1 in {2}, point 3 in {5, 0}: pairs written out by hand
+    point = np.array([0, 3, 0, 1, 3, 0])
+    zone = np.array([4, 5, 1, 2, 0, 7])
+    lo, hi = zone_pairs(point, zone, 4)
+    assert sorted(zip(lo.tolist(), hi.tolist())) == [(0, 5), (1, 4), (1, 7), (4, 7)]
+    empty = zone_pairs(np.array([0, 1]), np.array([3, 3]), 2)
+    assert empty[0].size == 0 and empty[1].size == 0
+
+
+def test_shared__pair_counts_equal_a_brute_force_count_on_the_same_points(crowd):
+    n, seed = 30_000, 11
+    report = estimate_overlaps(crowd, stop=StopRule(points=n), seed=seed, pair_sampling=SHARED)
+    assert report.pair_sampling == SHARED and report.metadata()["pair_sampling"] == SHARED
+    bounds = shapely.total_bounds(crowd.planar)
+    box_area = (bounds[2] - bounds[0]) * (bounds[3] - bounds[1])
+    x, y = shared_points(seed, n, bounds)
+    inside = inside_matrix(crowd.planar, x, y)
+    together = inside @ inside.T  # points in both zones i and j
+    assert len(report.rows) > 30  # the crowd overlaps in many places
+    for row, (i, j) in zip(report.rows, report.pairs):
+        assert row.hits == together[i, j], (row.id_a, row.id_b)
+        assert row.points == n and row.box_area == pytest.approx(box_area, rel=1e-12)
+        # z: the mid-p binomial score at p0 = shapely's intersection / the layer's box (Lancaster 1961)
+        assert row.z == pytest.approx(mid_p_z(row.hits, n, row.exact_planar / box_area), rel=1e-9, abs=1e-12)
+    # every pair of zones sharing a point is a candidate and is reported (min_share 0)
+    upper = np.triu(together, 1)
+    assert {tuple(map(int, p)) for p in np.argwhere(upper > 0)} <= set(report.pairs)
+    # the profile comes from the same points: at least k zones over each point (common practice)
+    depth = inside.sum(axis=0)
+    assert report.multiplicity
+    for m in report.multiplicity:
+        assert m.area_at_least == pytest.approx(box_area * np.count_nonzero(depth >= m.k) / n, rel=1e-12)
+        assert m.area_exactly == pytest.approx(box_area * np.count_nonzero(depth == m.k) / n, rel=1e-12, abs=1e-9)
+
+
+def test_shared__cross_pairs_counted_in_the_intersection_of_the_two_layers_boxes():
+    zones = crowd_zones()
+    a, b = project(([f"a{i}" for i in range(20)], zones[:20]), ([f"b{i}" for i in range(20)], zones[20:]))
+    n, seed = 20_000, 12
+    report = estimate_overlaps(a, b, stop=StopRule(points=n), seed=seed, pair_sampling=SHARED)
+    ba, bb = shapely.total_bounds(a.planar), shapely.total_bounds(b.planar)
+    bounds = (max(ba[0], bb[0]), max(ba[1], bb[1]), min(ba[2], bb[2]), min(ba[3], bb[3]))
+    x, y = shared_points(seed, n, bounds)
+    together = inside_matrix(a.planar, x, y) @ inside_matrix(b.planar, x, y).T
+    assert report.rows and report.multiplicity == ()
+    assert set(report.pairs) == set(exact_pairs_index(a, b))  # every cross pair of positive area, by shapely
+    for row, (i, j) in zip(report.rows, report.pairs):
+        assert row.hits == together[i, j]
+        assert row.box_area == pytest.approx((bounds[2] - bounds[0]) * (bounds[3] - bounds[1]), rel=1e-12)
+
+
+def exact_pairs_index(a, b):
+    return [(i, j) for i in range(len(a)) for j in range(len(b))
+            if shapely.intersection(a.planar[i], b.planar[j]).area > 0]
+
+
+def test_shared__intervals_cover_shapely_areas_at_the_nominal_rate():
+    """200 seeds, 90% Wilson intervals: each pair's misses lie in the 0.998 band of Binomial(200, 0.1)."""
+    geoms = crowd_zones(8, seed=4, width=0.15, height=0.1)  # 17 overlapping pairs, 47 to 600 expected hits each
+    (layer,) = project(([f"z{i}" for i in range(8)], geoms))
+    runs, confidence = 200, 0.90
+    misses: dict[tuple[int, int], int] = {}
+    for seed in range(runs):
+        report = estimate_overlaps(layer, stop=StopRule(points=4_000), confidence=confidence, seed=1000 + seed,
+                                   pair_sampling=SHARED, profile=False)
+        for row, pair in zip(report.rows, report.pairs):
+            misses[pair] = misses.get(pair, 0) + (not row.ci_low <= row.exact_planar <= row.ci_high)
+    assert len(misses) >= 15
+    low, high = stats.binom.ppf(0.001, runs, 1 - confidence), stats.binom.isf(0.001, runs, 1 - confidence)
+    for pair, count in misses.items():
+        assert low <= count <= high, (pair, count, low, high)
+    # and pooled over pairs, the miss rate is near nominal (pairs share points, so only a loose check)
+    assert abs(sum(misses.values()) / (runs * len(misses)) - (1 - confidence)) < 0.03
+
+
+def test_shared__rows_do_not_depend_on_chunk_or_workers(crowd):
+    stop = StopRule(points=150_000)  # more than two spans of 65,536 stream positions
+    one = estimate_overlaps(crowd, stop=stop, seed=13, pair_sampling=SHARED, exact=False)
+    for chunk, workers in ((7_777, 1), (DEFAULT_CHUNK, 2), (3_000, 2)):
+        other = estimate_overlaps(crowd, stop=stop, seed=13, pair_sampling=SHARED, exact=False, chunk=chunk,
+                                  workers=workers)
+        assert other.rows == one.rows and other.multiplicity == one.multiplicity, (chunk, workers)
+    target = StopRule(points=None, absolute=2e6)
+    alone = estimate_overlaps(crowd, stop=target, seed=14, pair_sampling=SHARED, exact=False, chunk=8_192)
+    pooled = estimate_overlaps(crowd, stop=target, seed=14, pair_sampling=SHARED, exact=False, chunk=8_192, workers=2)
+    assert pooled.rows == alone.rows and pooled.multiplicity == alone.multiplicity
+
+
+def test_shared__absolute_tolerance_met_by_every_pair_and_the_profile(crowd):
+    target = 2e6  # m², an interval half-width of 2 km² on overlaps of up to about 40 km²
+    report = estimate_overlaps(crowd, stop=StopRule(points=None, absolute=target), seed=15, pair_sampling=SHARED,
+                               chunk=8_192)
+    assert report.rows
+    points = {r.points for r in report.rows}
+    assert len(points) == 1  # one sample for all the pairs
+    for row in report.rows:
+        assert row.stop_reason == "target" and row.pilot_points > 0 and row.pilot_points % 8_192 == 0
+        # two-stage target (methods §3): the final half-width lands near the target, may exceed it a little
+        assert (row.ci_high - row.ci_low) / 2 <= 1.3 * target
+        assert abs(row.estimate - row.exact_planar) <= 4 * max(row.stderr, target / 4)
+    for m in report.multiplicity:
+        assert (m.area_at_least_ci_high - m.area_at_least_ci_low) / 2 <= 1.3 * target
+
+
+def test_shared__no_pairs_and_no_profile_draws_nothing():
+    (layer,) = project((["a", "b"], [BIG, FAR]))
+    report = estimate_overlaps(layer, stop=StopRule(points=5_000), seed=1, pair_sampling=SHARED, profile=False)
+    assert report.rows == () and report.multiplicity == () and report.exact_profile == "not-asked"
+    with_profile = estimate_overlaps(layer, stop=StopRule(points=20_000), seed=1, pair_sampling=SHARED)
+    (k1,) = with_profile.multiplicity
+    union = shapely.union_all(layer.planar).area
+    assert within(k1.area_at_least, k1.area_at_least_ci_low, k1.area_at_least_ci_high, union, k1.area_at_least_stderr)
+
+
+@pytest.mark.parametrize("stop, expected", [
+    (StopRule(points=1_000), PER_PAIR),
+    (StopRule(points=None, absolute=1e4), SHARED),
+    (StopRule(points=None, relative=0.01), PER_PAIR),
+])
+def test_pair_sampling_for__auto_follows_the_stop_rule(stop, expected):
+    assert pair_sampling_for(AUTO, stop) == expected
+    assert pair_sampling_for(SHARED, stop) == SHARED and pair_sampling_for(PER_PAIR, stop) == PER_PAIR
+
+
+def test_pair_sampling__unknown_name_is_refused_by_parameter(mixed):
+    with pytest.raises(OptionError) as err:
+        estimate_overlaps(mixed, stop=StopRule(points=1_000), seed=1, pair_sampling="each")
+    assert err.value.param == "pair_sampling" and "shared" in str(err.value)
