@@ -8,6 +8,7 @@ plain fractions or the caller's units, nothing here knows about planes.
 
 from __future__ import annotations
 
+import math
 from statistics import NormalDist
 
 import numpy as np
@@ -48,6 +49,8 @@ def wilson_interval(hits, n, confidence: float = 0.95):
     (0.2553, 0.3662)
     """
     z = z_for(confidence)
+    if np.ndim(hits) == 0 and np.ndim(n) == 0:
+        return _wilson_scalar(float(hits), float(n), z)
     hits = np.asarray(hits, dtype=float)
     n = np.asarray(n, dtype=float)
     p = hits / n
@@ -60,6 +63,19 @@ def wilson_interval(hits, n, confidence: float = 0.95):
     low = np.where(hits == 0, 0.0, low)
     high = np.where(hits == n, 1.0, high)
     return low, high
+
+
+def _wilson_scalar(hits: float, n: float, z: float) -> tuple[float, float]:
+    """:func:`wilson_interval` for one count, in plain floats: the same operations in the same order
+    (so the same digits), without numpy's cost per call on scalars (about 40 µs)."""
+    p = hits / n
+    z2 = z * z
+    centre = p + z2 / (2 * n)
+    half = z * math.sqrt(p * (1 - p) / n + z2 / (4 * n * n))
+    denom = 1 + z2 / n
+    low = min(max((centre - half) / denom, 0.0), 1.0)
+    high = min(max((centre + half) / denom, 0.0), 1.0)
+    return (0.0 if hits == 0 else low), (1.0 if hits == n else high)
 
 
 def normal_interval(estimate: float, stderr: float, confidence: float) -> tuple[float, float]:

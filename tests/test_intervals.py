@@ -96,3 +96,18 @@ def test_normal_interval__scipy_norm_interval(confidence):
     ref_low, ref_high = stats.norm.interval(confidence, loc=1234.5, scale=6.7)
     assert low == pytest.approx(ref_low, rel=1e-12)
     assert high == pytest.approx(ref_high, rel=1e-12)
+
+
+def test_wilson_interval__one_count_gives_the_same_digits_as_an_array():
+    """The scalar path (plain floats, for speed) and the numpy path agree to the last bit, 0 and n included."""
+    import numpy as np
+
+    from areamc.intervals import wilson_interval
+
+    rng = np.random.default_rng(2026)
+    n = rng.integers(1, 10**8, 3000)
+    hits = np.where(rng.random(3000) < 0.1, np.where(rng.random(3000) < 0.5, 0, n), rng.integers(0, n + 1))
+    for confidence in (0.9, 0.95, 0.999):
+        low, high = wilson_interval(hits, n, confidence)
+        for h, m, lo, hi in zip(hits.tolist(), n.tolist(), low.tolist(), high.tolist()):
+            assert wilson_interval(h, m, confidence) == (lo, hi)
