@@ -172,6 +172,9 @@ class WeightedRun:
         ``a`` (covered) and ``b`` (in the region) are fractions of the same
         `points` draws with ``a ⊂ b``, so ``Cov(a, b) = a (1 − b) / n``
         (multinomial counts; Cochran 1977, §6.4 for the ratio's variance).
+        The variance is evaluated at proportions adjusted by ``z²/2`` hits in
+        ``z²`` more points (Agresti & Coull 1998, Amer. Statist. 52:119-126),
+        which keeps it above zero when no sampled point, or every one, is covered.
         """
         known_k, known_0, t, n = self.known[column], self.known[0], self.scale, self.points
         a = float(self.sums[column]) / n if n else 0.0
@@ -180,9 +183,15 @@ class WeightedRun:
         if bottom <= 0:
             return math.nan, math.nan, math.nan, math.nan
         r = top / bottom
-        var = (t / bottom) ** 2 * (a * (1 - a) - 2 * r * a * (1 - b) + r * r * b * (1 - b)) / n if n else 0.0
-        se = math.sqrt(max(var, 0.0))
         z = z_for(confidence)
+        var = 0.0
+        if n:
+            # the variance from proportions pulled off 0 and 1 as Agresti & Coull (1998) do, so that a
+            # sample with no covered point (or all covered) does not claim a zero-width interval
+            a_, b_ = ((float(self.sums[c]) + z * z / 2) / (n + z * z) for c in (column, 0))
+            r_ = (known_k + t * a_) / (known_0 + t * b_)
+            var = (t / bottom) ** 2 * (a_ * (1 - a_) - 2 * r_ * a_ * (1 - b_) + r_ * r_ * b_ * (1 - b_)) / n
+        se = math.sqrt(max(var, 0.0))
         return r, se, max(0.0, r - z * se), min(1.0, r + z * se)
 
 
