@@ -33,7 +33,9 @@ __all__ = [
     "covered_population",
     "covered_population_loop",
     "covered_population_dissolved",
+    "covered_population_by",
     "covered_share",
+    "covered_shares",
     "at_least_k_share",
     "at_least_2_share_pairs_union",
     "raster_cell_fractions",
@@ -266,6 +268,38 @@ def covered_population_dissolved(blocks, counts, zones) -> float:
     return float(np.sum(np.asarray(counts, float) * covered / shapely.area(blocks)))
 
 
+def covered_population_by(blocks, counts, zones, owner, districts) -> np.ndarray:
+    """Covered population of each district, every block lying in one district (`owner`, an index into `districts`).
+
+    Per district, :func:`covered_population` (areal weighting) of its blocks
+    against only the zones meeting the district (one query of a shared
+    ``STRtree`` of all the zones):
+    Σ_{i in d} count_i x |block_i ∩ ∪ zones| / |block_i| (persons; plane metres).
+
+    Measured on moonshot.py's scene at scale 0.1 (300 districts, 101,777
+    blocks, 10,000 zones; best of 2, one core): this 7.7-8.6 s; the zones
+    found by querying the district's blocks instead of its outline 11.0 s;
+    the local unions run once over all the blocks and summed per district
+    11.3-13.8 s (its padded union array spans every block); per district, a
+    dissolve of the zones meeting it (:func:`covered_population_dissolved`)
+    9.2 s.  All agree to 1e-15.
+    """
+    blocks = np.asarray(blocks, dtype=object)
+    zones = np.asarray(zones, dtype=object)
+    districts = np.asarray(districts, dtype=object)
+    counts = np.asarray(counts, float)
+    owner = np.asarray(owner)
+    tree = shapely.STRtree(zones)
+    order = np.argsort(owner, kind="stable")
+    cuts = np.searchsorted(owner[order], np.arange(len(districts) + 1))
+    out = np.zeros(len(districts))
+    for d in np.flatnonzero(np.diff(cuts)):
+        mine = order[cuts[d]:cuts[d + 1]]
+        near = zones[tree.query(districts[d], predicate="intersects")]
+        out[d] = covered_population(blocks[mine], counts[mine], near) if len(near) else 0.0
+    return out
+
+
 # -- coverage multiplicity -----------------------------------------------------------------------------------
 
 def covered_share(district, zones) -> float:
@@ -279,6 +313,34 @@ def covered_share(district, zones) -> float:
     if not len(near):
         return 0.0
     return float(shapely.area(shapely.union_all(_clip_to(near, district)))) / district.area
+
+
+def covered_shares(districts, zones) -> np.ndarray:
+    """Exact share of each of many districts covered by at least one zone (plane metres), with one tree for all.
+
+    Per district: the union of only the zones an ``STRtree`` query (one tree
+    of all the zones) finds meeting it, then its intersection with the
+    district: |district ∩ ∪ near zones| / |district|.
+
+    Measured on moonshot.py's scene at scale 0.1 (300 districts, 10,000
+    zones of 97 vertices; best of 2, one core): this 1.35-1.43 s; the same
+    vectorised (one query for all pairs, unions over a padded array, one
+    intersection call) 1.53 s; clipping each zone to the district first and
+    unioning the pieces (:func:`covered_share`'s order, zones inside kept
+    whole) 1.80 s vectorised, 1.98 s in a loop; a dissolve of all zones then
+    the district's intersection with the parts 3.6 s.  All agree to 5e-15.
+    (:func:`covered_share` itself, in a loop, would build the tree of all
+    the zones once per district.)
+    """
+    districts = np.asarray(districts, dtype=object)
+    zones = np.asarray(zones, dtype=object)
+    tree = shapely.STRtree(zones)
+    out = np.zeros(len(districts))
+    for i, district in enumerate(districts):
+        near = zones[tree.query(district, predicate="intersects")]
+        if len(near):
+            out[i] = shapely.area(shapely.intersection(district, shapely.union_all(near))) / district.area
+    return out
 
 
 def at_least_k_share(district, zones, k: int) -> float:

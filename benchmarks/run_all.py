@@ -1,6 +1,6 @@
 """Run every speed benchmark, print one table, and (with --write) put it in docs/performance.md.
 
-Run:  .venv/bin/python benchmarks/run_all.py [--write] [--quick] [--only TEXT] [--json FILE]
+Run:  .venv/bin/python benchmarks/run_all.py [--write] [--quick] [--only TEXT] [--json FILE] [--moonshot]
 
 Each row comes from a benchmark module's ``run(quick=...)``, which times areamc and the fair exact baseline of ``baselines.py`` side by
 side and returns a small record (``common.record``).  Rows for a feature
@@ -11,6 +11,10 @@ error, and the others still run.  ``--write`` replaces the text between the
 markers of docs/performance.md with the table (full mode only; the file is
 replaced atomically).  ``--quick`` runs smaller sizes for a smoke run
 (under a minute); ``--only`` keeps the rows whose name contains TEXT.
+The moonshot (``moonshot.py``, tens of minutes) runs only with
+``--moonshot`` or ``--only moonshot``; otherwise its row shows the figures
+of its last full run, saved in ``benchmarks/moonshot_last.json`` and
+labelled with their date and command.
 
 The statistical scripts (claim_error_rate, flag_rate, tolerance_bias,
 small_draws) back figures in docs/methods.md and are not timed here.
@@ -53,10 +57,16 @@ ROWS = [
     ("memory_points", "run", {}, "(d)"),
     ("workers", "run", {}, "(e)"),
     ("workers_one_region", "run", {}, "(e)"),
+    ("overlap_pairs", "run", {}, "item 6"),
     ("classify_zones", "run", {}, "item 1"),
     ("raster_total", "run", {}, ""),
     ("area_throughput", "run", {}, ""),
     ("transform_layer", "run", {}, "item 6"),
+]
+#: Rows run only when asked (``--moonshot``, or ``--only`` naming them): the moonshot takes tens of minutes.
+#: Otherwise the table shows the figures of its last full run, saved with their date and command.
+ON_REQUEST = [
+    ("moonshot", "run", {}, ""),
 ]
 
 
@@ -159,12 +169,19 @@ def main(argv=None) -> int:
     parser.add_argument("--quick", action="store_true", help="smaller sizes, for a smoke run (cannot be written)")
     parser.add_argument("--only", metavar="TEXT", help="run only the rows whose module or sampler contains TEXT")
     parser.add_argument("--json", metavar="FILE", help="also write the records as JSON to FILE")
+    parser.add_argument("--moonshot", action="store_true",
+                        help="also run the moonshot (benchmarks/moonshot.py, tens of minutes); without it the table "
+                             "shows its last saved run")
     args = parser.parse_args(argv)
     if args.write and (args.quick or args.only):
         parser.error("--write takes the full run: drop --quick and --only")
     if args.write:
         replace_block(DOC.read_text(encoding="utf-8"), "")  # fail on missing markers before an 8-minute run
     rows = [r for r in ROWS if not args.only or args.only in f"{r[0]}.{r[1]} {' '.join(map(str, r[2].values()))}"]
+    # an on-request row runs with --moonshot, or when --only names it (not on any substring of its name)
+    asked = [r for r in ON_REQUEST if args.moonshot or (args.only and r[0] in args.only)]
+    rows += asked
+    saved = [r for r in ON_REQUEST if r not in asked and not args.only]
     start = time.perf_counter()
     records = []
     for module, function, kwargs, letter in rows:
@@ -174,6 +191,11 @@ def main(argv=None) -> int:
         rec["letter"] = letter
         print_record(rec)
         print(f"  ({time.perf_counter() - row_start:.0f} s)", flush=True)
+        records.append(rec)
+    for module, _function, _kwargs, letter in saved:
+        rec = importlib.import_module(module).saved_record()  # reads a small JSON file: no run
+        rec["letter"] = letter
+        print_record(rec)
         records.append(rec)
     seconds = time.perf_counter() - start
     text = block(records, seconds, args.quick)
