@@ -55,8 +55,36 @@ CELLS_PER_POINT = 0.25
 MIN_SIDE = 4
 
 
+class _Cells:
+    """The geometry of an ``nx x ny`` grid over a box (plane metres), shared by :class:`CellGrid` and :class:`Strata`."""
+
+    box: Box
+    nx: int
+    ny: int
+
+    @property
+    def dx(self) -> float:
+        """Cell width, metres."""
+        return (self.box.xmax - self.box.xmin) / self.nx
+
+    @property
+    def dy(self) -> float:
+        """Cell height, metres."""
+        return (self.box.ymax - self.box.ymin) / self.ny
+
+    @property
+    def cell_area(self) -> float:
+        """Area of one cell, m²."""
+        return self.dx * self.dy
+
+    def cell_corners(self, cells: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Lower-left corners ``(x, y)`` of cells given by row-major index ``iy * nx + ix``, plane metres."""
+        iy, ix = np.divmod(np.asarray(cells, dtype=np.int64), self.nx)
+        return self.box.xmin + ix * self.dx, self.box.ymin + iy * self.dy
+
+
 @dataclass(frozen=True)
-class CellGrid:
+class CellGrid(_Cells):
     """The classified cells of a box (plane metres).
 
     Attributes
@@ -80,19 +108,6 @@ class CellGrid:
     state: np.ndarray
 
     @property
-    def dx(self) -> float:
-        return (self.box.xmax - self.box.xmin) / self.nx
-
-    @property
-    def dy(self) -> float:
-        return (self.box.ymax - self.box.ymin) / self.ny
-
-    @property
-    def cell_area(self) -> float:
-        """Area of one cell, m²."""
-        return self.dx * self.dy
-
-    @property
     def cells(self) -> np.ndarray:
         """The states as an ``(ny, nx)`` array (a view; border removed)."""
         return self.state.reshape(self.ny + 2, self.nx + 2)[1:-1, 1:-1]
@@ -106,11 +121,6 @@ class CellGrid:
     def crossing_cells(self) -> np.ndarray:
         """Row-major indices ``iy * nx + ix`` of the crossing cells (int64, ascending)."""
         return np.flatnonzero(self.cells == CROSSING)
-
-    def cell_corners(self, cells: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Lower-left corners ``(x, y)`` of cells given by row-major index ``iy * nx + ix``, plane metres."""
-        iy, ix = np.divmod(np.asarray(cells, dtype=np.int64), self.nx)
-        return self.box.xmin + ix * self.dx, self.box.ymin + iy * self.dy
 
     def strata(self) -> Strata:
         """The crossing cells to sample; the inside cells' area is known exactly."""
@@ -139,7 +149,7 @@ class CellGrid:
 
 
 @dataclass(frozen=True)
-class Strata:
+class Strata(_Cells):
     """Where a stratified sampler must put points, and what the other cells contribute exactly.
 
     Attributes
@@ -159,23 +169,6 @@ class Strata:
     ny: int
     cells: np.ndarray
     known: np.ndarray
-
-    @property
-    def dx(self) -> float:
-        return (self.box.xmax - self.box.xmin) / self.nx
-
-    @property
-    def dy(self) -> float:
-        return (self.box.ymax - self.box.ymin) / self.ny
-
-    @property
-    def cell_area(self) -> float:
-        return self.dx * self.dy
-
-    def cell_corners(self, cells: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Lower-left corners ``(x, y)`` of cells given by row-major index, plane metres."""
-        iy, ix = np.divmod(np.asarray(cells, dtype=np.int64), self.nx)
-        return self.box.xmin + ix * self.dx, self.box.ymin + iy * self.dy
 
 
 def grid_cells(points: int, box: Box) -> tuple[int, int]:
