@@ -59,7 +59,7 @@ progress and stop it after the batch that ends past ``AREAMC_LIMIT_S``
 (the rest extrapolated, and said so); ``--dump`` writes every district's
 answers on both sides to an ``.npz`` file.  The full run takes 12 to 16
 minutes here (scene 40 s, fiona sample 3 s, areamc's layers 150-185 s, job
-290-555 s depending on what else runs, profile 40 s, exact overlay 135-210 s
+290-555 s depending on what else runs, profile 40 s, exact overlay 120-210 s
 with its timed sample) and about 11 GiB of memory in use at its peak (this
 process 4.9 GiB; two workers 7.4 GiB each by RSS, about 3 GiB each of it
 their own, the rest shared with this process).
