@@ -136,6 +136,14 @@ def accumulate(
     return Sums(second.points, second.sums, second.sumsq, second.trace, reason, first.points)
 
 
+def score_columns(scores) -> np.ndarray:
+    """Scores as an ``(n, m)`` array: a single column made two-dimensional, bools as int64 hit counts."""
+    scores = np.asarray(scores)
+    if scores.ndim == 1:
+        scores = scores[:, None]
+    return scores.astype(np.int64) if scores.dtype == bool else scores
+
+
 def _stage(draw, evaluate, budget, check, chunk, trace_every, progress, drawn_before) -> Sums:
     points = 0
     totals: _OrderedSums | None = None
@@ -145,11 +153,7 @@ def _stage(draw, evaluate, budget, check, chunk, trace_every, progress, drawn_be
     while points < budget:
         n = min(chunk, budget - points)
         x, y = draw(n)
-        scores = np.asarray(evaluate(x, y))
-        if scores.ndim == 1:
-            scores = scores[:, None]
-        if scores.dtype == bool:
-            scores = scores.astype(np.int64)
+        scores = score_columns(evaluate(x, y))
         if totals is None:
             totals = _OrderedSums(scores.shape[1], scores.dtype)
         if trace_every:

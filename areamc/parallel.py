@@ -468,7 +468,7 @@ def fixed_count_sums(sampler, evaluate, points: int, workers: int | None = 1, *,
 
 def _span_sums(state, span) -> tuple:
     """One span's sums: (True, sums, sumsq) for hit counts, (False, block totals, block square totals) for reals."""
-    from .engine import SUM_BLOCK
+    from .engine import SUM_BLOCK, score_columns
 
     sampler, evaluate = state
     first, n, step = span
@@ -479,11 +479,7 @@ def _span_sums(state, span) -> tuple:
     while drawn < n:
         m = min(step, n - drawn)
         x, y = sampler.random(m)
-        scores = np.asarray(evaluate(x, y))
-        if scores.ndim == 1:
-            scores = scores[:, None]
-        if scores.dtype == bool:
-            scores = scores.astype(np.int64)
+        scores = score_columns(evaluate(x, y))
         if exact is None:
             exact = bool(np.issubdtype(scores.dtype, np.integer))
         if exact:
