@@ -40,7 +40,7 @@ class AreaRow:
     id : str
     feature_index : int
         Position of the feature in its layer as read (0-based; ``Layer.indices``).
-    estimate, stderr, ci_low, ci_high : float
+    estimate, std_error, ci_low, ci_high : float
         Estimate, standard error and Wilson interval (m²).
     points, hits : int
         Points behind the estimate and those inside the feature.
@@ -68,7 +68,7 @@ class AreaRow:
     id: str
     feature_index: int
     estimate: float
-    stderr: float
+    std_error: float
     ci_low: float
     ci_high: float
     points: int
@@ -95,7 +95,7 @@ class TraceRow:
     points: int
     hits: int
     estimate: float
-    stderr: float
+    std_error: float
     ci_low: float
     ci_high: float
 
@@ -128,7 +128,7 @@ class AreaReport:
         for row, trace in zip(self.rows, self.traces):
             for point in trace:
                 est = AreaEstimate.from_counts(point.sums[0], point.points, row.box_area, self.run.confidence)
-                out.append(TraceRow(row.id, row.feature_index, point.points, point.sums[0], est.estimate, est.stderr,
+                out.append(TraceRow(row.id, row.feature_index, point.points, point.sums[0], est.estimate, est.std_error,
                                     est.ci_low, est.ci_high))
         return out
 
@@ -253,7 +253,7 @@ def _row(fid: str, index: int, run: HitOrMissRun, confidence: float, planar: flo
         id=fid,
         feature_index=index,
         estimate=est.estimate,
-        stderr=est.stderr,
+        std_error=est.std_error,
         ci_low=est.ci_low,
         ci_high=est.ci_high,
         points=est.points,

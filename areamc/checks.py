@@ -63,13 +63,13 @@ def binomial_deviation(hits, n, p0):
     return z if z.ndim else float(z)
 
 
-def deviation_scale(stderr: float, low: float, high: float, confidence: float) -> float:
+def deviation_scale(std_error: float, low: float, high: float, confidence: float) -> float:
     """Scale for a normal deviation: the standard error, floored at the interval half-width over z.
 
     The floor keeps rows whose standard error is 0 (all points scored the
     same) from being flagged while the exact value lies in their interval.
     """
-    return max(stderr, (high - low) / 2 / z_for(confidence))
+    return max(std_error, (high - low) / 2 / z_for(confidence))
 
 
 def normal_deviation(estimate: float, exact: float, scale: float) -> float:

@@ -74,7 +74,7 @@ class PopulationShare:
         The region's population (exact where the source has one, else estimated), in the source's count unit.
     covered : float
         ``share x total``.
-    share, stderr, ci_low, ci_high : float or None
+    share, std_error, ci_low, ci_high : float or None
         Covered share of the population (0..1), Wilson interval for
         importance sampling over units (the confidence sequence with a claim), normal
         (delta method) for grid and uniform sampling; None with no density near the region.
@@ -99,7 +99,7 @@ class PopulationShare:
     total: float
     covered: float
     share: float | None
-    stderr: float | None
+    std_error: float | None
     ci_low: float | None
     ci_high: float | None
     points: int
@@ -112,15 +112,15 @@ class PopulationShare:
     def to_dict(self) -> dict:
         """Fields under the names rows carry them (``population_share``, ...)."""
         return {
-            "population": self.total,
-            "covered_population": self.covered,
+            "population_total": self.total,
+            "population_covered": self.covered,
             "population_share": self.share,
-            "population_share_stderr": self.stderr,
+            "population_share_std_error": self.std_error,
             "population_share_ci_low": self.ci_low,
             "population_share_ci_high": self.ci_high,
             "population_points": self.points,
             "population_method": self.method,
-            "exact_population_share": self.exact_share,
+            "population_exact_share": self.exact_share,
             "population_verdict": self.verdict,
             "population_effective_points": self.effective_points,
             "population_largest_weight_share": self.largest_weight_share,
@@ -138,17 +138,19 @@ class CoverageRow:
         Position of the region in its layer as read (0-based; ``Layer.indices``).
     k : int
         The multiplicity: the share covered by at least `k` zones.
-    share, stderr, ci_low, ci_high : float
+    share, std_error, ci_low, ci_high : float
         Covered share of the region's area (0..1), its standard error and
         interval (Wilson, or the confidence sequence when a claim is checked,
         or with a replicate sampler the covered area's Student-t interval
         over the region's exact area; see `interval`).
-    points, hits : int
-        In-region sample points, and those covered by at least k zones.
+    region_points, hits : int
+        Sample points that fell in the region (of those thrown into its box), and those covered
+        by at least k zones.
     region_area : float
         Exact planar area of the region, m² of the equal-area plane.
-    covered, uncovered, uncovered_ci_low, uncovered_ci_high : float
-        ``share x region_area`` and ``(1 − share) x region_area`` with its interval, m².
+    covered_area, area_below_k, area_below_k_ci_low, area_below_k_ci_high : float
+        ``share x region_area`` and ``(1 − share) x region_area`` (the area covered by fewer than k
+        zones: at k = 1 the uncovered area) with its interval, m².
     exact_share : float or None
         shapely's ``area(region ∩ covered set) / area(region)``; None when not
         computed (time limit, or ``exact=False``).
@@ -158,7 +160,7 @@ class CoverageRow:
         samplers the t score turned into a normal score).
     flagged : bool
     claim, verdict : float or None, str or None
-        The claimed share and "meets", "falls short" or "undecided".
+        The claimed share and "meets", "falls-short" or "undecided".
     interval : str
         "wilson", "confidence-sequence" or "student-t".
     stop_reason : str
@@ -173,16 +175,16 @@ class CoverageRow:
     feature_index: int
     k: int
     share: float
-    stderr: float
+    std_error: float
     ci_low: float
     ci_high: float
-    points: int
+    region_points: int
     hits: int
     region_area: float
-    covered: float
-    uncovered: float
-    uncovered_ci_low: float
-    uncovered_ci_high: float
+    covered_area: float
+    area_below_k: float
+    area_below_k_ci_low: float
+    area_below_k_ci_high: float
     exact_share: float | None
     z: float | None
     flagged: bool
@@ -440,7 +442,7 @@ def _exact_shares(region, near, ks, exact, limit_s) -> tuple[dict, str]:
 
 def _row(rid, index, k, hits, n, region_area, exact_share, claim, confidence, run, people) -> CoverageRow:
     share = hits / n if n else math.nan
-    stderr = math.sqrt(share * (1 - share) / n) if n else math.nan
+    std_error = math.sqrt(share * (1 - share) / n) if n else math.nan
     if claim is not None:
         low, high = confidence_sequence(hits, n, confidence)
         method = SEQUENCE
@@ -451,9 +453,9 @@ def _row(rid, index, k, hits, n, region_area, exact_share, claim, confidence, ru
         low, high, method = math.nan, math.nan, WILSON
     z = binomial_deviation(hits, n, exact_share) if exact_share is not None and n else None
     return CoverageRow(
-        id=rid, feature_index=index, k=k, share=share, stderr=stderr, ci_low=low, ci_high=high, points=n, hits=hits,
-        region_area=region_area, covered=share * region_area, uncovered=(1 - share) * region_area,
-        uncovered_ci_low=(1 - high) * region_area, uncovered_ci_high=(1 - low) * region_area,
+        id=rid, feature_index=index, k=k, share=share, std_error=std_error, ci_low=low, ci_high=high, region_points=n, hits=hits,
+        region_area=region_area, covered_area=share * region_area, area_below_k=(1 - share) * region_area,
+        area_below_k_ci_low=(1 - high) * region_area, area_below_k_ci_high=(1 - low) * region_area,
         exact_share=exact_share, z=z, flagged=flagged(z),
         claim=claim, verdict=None if claim is None else verdict(hits, n, claim, confidence), interval=method,
         stop_reason=run.reason, pilot_points=run.pilot_points, population=people,
@@ -468,10 +470,10 @@ def _replicate_row(rid, index, k, column, run: HitOrMissRun, region_area, exact_
     low, high = max(0.0, est.ci_low / region_area), min(1.0, est.ci_high / region_area)
     z = est.deviation(exact_share * region_area) if exact_share is not None else None
     return CoverageRow(
-        id=rid, feature_index=index, k=k, share=share, stderr=est.stderr / region_area, ci_low=low, ci_high=high,
-        points=run.hits[0], hits=run.hits[column], region_area=region_area, covered=est.estimate,
-        uncovered=region_area - est.estimate, uncovered_ci_low=(1 - high) * region_area,
-        uncovered_ci_high=(1 - low) * region_area, exact_share=exact_share, z=z, flagged=flagged(z),
+        id=rid, feature_index=index, k=k, share=share, std_error=est.std_error / region_area, ci_low=low, ci_high=high,
+        region_points=run.hits[0], hits=run.hits[column], region_area=region_area, covered_area=est.estimate,
+        area_below_k=region_area - est.estimate, area_below_k_ci_low=(1 - high) * region_area,
+        area_below_k_ci_high=(1 - low) * region_area, exact_share=exact_share, z=z, flagged=flagged(z),
         claim=None, verdict=None, interval=STUDENT_T, stop_reason=run.reason, pilot_points=run.pilot_points,
         population=people,
     )
@@ -509,7 +511,7 @@ def _population_share(run: WeightedRun, column, k, truth, covered_truth, claim, 
         total=total,
         covered=share * total,
         share=share,
-        stderr=se,
+        std_error=se,
         ci_low=low,
         ci_high=high,
         points=run.points,

@@ -10,8 +10,9 @@ Three kinds of source:
   closed-form ellipsoidal quadrangle for geographic grids, Snyder 1987).  Read
   window by window, never whole.  It holds an open file: use it as a
   context manager, or call :meth:`RasterDensity.close`.
-* :class:`ExpressionDensity`: a safe arithmetic expression in ``x``, ``y``
-  (plane metres) or ``lon``, ``lat`` (degrees); see :mod:`areamc.expression`.
+* :class:`ExpressionDensity`: a safe arithmetic expression in ``lon``, ``lat``
+  (degrees), ``east``, ``north`` (metres from a named origin) or ``x``, ``y``
+  (metres of the computation plane); see :mod:`areamc.expression`.
 
 A source answers nothing by itself.  ``source.for_region(region)`` returns
 an immutable view built for that region alone (the model is
@@ -61,6 +62,8 @@ __all__ = [
     "BlockDensity",
     "RasterDensity",
     "ExpressionDensity",
+    "parse_origin",
+    "origin_crs",
     "DensitySpec",
     "block_counts",
     "guess_density_kind",
@@ -627,27 +630,137 @@ def warn_nodata(source, views) -> int:
 
 # -- expressions --------------------------------------------------------------
 
-class ExpressionDensity:
-    """A density given by an expression in ``x``, ``y`` (plane metres) or ``lon``, ``lat`` (degrees).
+def parse_origin(origin) -> tuple[float, float]:
+    """Read the origin of ``east``, ``north``: ``"LON,LAT"`` text or a ``(lon, lat)`` pair, in WGS84 degrees.
 
-    Values are per m².  Negative or non-finite values at a sampled point stop
-    the run with an :class:`~areamc.errors.InputError` (parameter ``density``).
+    Returns ``(lon, lat)`` as floats.
+
+    Raises
+    ------
+    OptionError
+        (parameter ``origin``) unless it is exactly two finite numbers, the
+        longitude within [-180, 180] and the latitude within [-90, 90].
+    """
+    shown = origin if isinstance(origin, str) else repr(origin)
+    parts = origin.split(",") if isinstance(origin, str) else origin
+    try:
+        if isinstance(parts, (bytes, dict)) or len(parts) != 2:
+            raise ValueError
+        lon, lat = (float(p.strip() if isinstance(p, str) else p) for p in parts)
+    except (TypeError, ValueError):
+        raise OptionError(f"{{param}}: expected LON,LAT in degrees (two numbers, such as 10.6,47.25), got {shown!r}",
+                          param="origin") from None
+    if not (math.isfinite(lon) and math.isfinite(lat)):
+        raise OptionError(f"{{param}}: the longitude and latitude must be finite numbers, got {shown!r}", param="origin")
+    if not -180 <= lon <= 180:
+        raise OptionError(f"{{param}}: longitude {lon:g} lies outside [-180, 180] degrees (LON,LAT: longitude "
+                          f"first), got {shown!r}", param="origin")
+    if not -90 <= lat <= 90:
+        raise OptionError(f"{{param}}: latitude {lat:g} lies outside [-90, 90] degrees (LON,LAT: longitude first), "
+                          f"got {shown!r}", param="origin")
+    return lon, lat
+
+
+def origin_crs(origin: tuple[float, float]) -> pyproj.CRS:
+    """The plane of ``east``, ``north``: Lambert azimuthal equal-area on WGS84 centred on `origin` (lon, lat degrees).
+
+    ``+proj=laea +lat_0=LAT +lon_0=LON +datum=WGS84 +units=m`` (Snyder 1987,
+    §24): metres east and north of the origin, the same whatever plane the
+    areas are computed in.
+    """
+    lon, lat = parse_origin(origin)
+    return pyproj.CRS.from_proj4(f"+proj=laea +lat_0={lat!r} +lon_0={lon!r} +datum=WGS84 +units=m")
+
+
+def _unused_origin(why: str) -> None:
+    warnings.warn(AreamcWarning(f"{{param}} is not used: {why} (it is the point a density expression's east, north "
+                                "are measured from)", param="origin"), stacklevel=3)
+
+
+def expression_origin(expression: Expression, origin) -> tuple[float, float] | None:
+    """The origin `expression` needs, read with :func:`parse_origin` (None when it uses no ``east``, ``north``).
+
+    Raises :class:`OptionError` when the expression uses ``east`` or
+    ``north`` and `origin` is None; warns (:class:`AreamcWarning`) when an
+    origin is given that the expression does not use.
+    """
+    point = None if origin is None else parse_origin(origin)
+    if expression.uses_origin and point is None:
+        raise OptionError(
+            f"{{origin}}: the {{density}} expression {expression.text!r} uses east, north (metres east and north of "
+            "a point you name); name it as LON,LAT in degrees", params=("origin", "density"))
+    if point is not None and not expression.uses_origin:
+        _unused_origin(f"the expression {expression.text!r} uses no east, north")
+        return None
+    return point
+
+
+class ExpressionDensity:
+    """A density given by an expression in coordinates of each point (values per m²).
+
+    The coordinates (:data:`areamc.expression.VARIABLES`):
+
+    * ``lon``, ``lat``: WGS84 degrees, the inverse of the computation plane at the point;
+    * ``east``, ``north``: metres east and north of `origin` (lon, lat degrees) on the
+      Lambert azimuthal equal-area plane centred there (:func:`origin_crs`), computed
+      from the point's ``lon``, ``lat``: they do not depend on the computation plane;
+    * ``x``, ``y``: metres of the computation plane, from its own origin (the
+      ``lat_0``, ``lon_0`` of its PROJ string).  A plane chosen from the data
+      (``plane.chosen``) moves with the data, and so do ``x``, ``y``: a warning
+      (:class:`~areamc.errors.AreamcWarning`, parameters ``density``, ``crs``,
+      ``origin``) says so when the expression uses them.
+
+    Parameters
+    ----------
+    text : str or Expression
+    plane : EqualAreaPlane
+        The plane sample points come in (metres).
+    origin : (lon, lat) or "LON,LAT", optional
+        Degrees; needed when the expression uses ``east`` or ``north`` (an
+        :class:`~areamc.errors.OptionError` otherwise), and warned about as
+        unused when it does not.
+
+    Negative or non-finite values at a sampled point stop the run with an
+    :class:`~areamc.errors.InputError` (parameter ``density``).
     """
 
     label = "expression"
 
-    def __init__(self, text: str | Expression, plane: EqualAreaPlane) -> None:
+    def __init__(self, text: str | Expression, plane: EqualAreaPlane, *,
+                 origin: tuple[float, float] | str | None = None) -> None:
         self.expression = text if isinstance(text, Expression) else parse_expression(text)
         self.plane = plane
-        self._to_lonlat = transformer(plane.crs, LONLAT) if self.expression.uses_lonlat else None
+        self.origin = expression_origin(self.expression, origin)
+        uses_lonlat = self.expression.uses_lonlat or self.expression.uses_origin
+        self._to_lonlat = transformer(plane.crs, LONLAT) if uses_lonlat else None
+        self._to_origin = transformer(LONLAT, origin_crs(self.origin)) if self.origin is not None else None
+        if plane.chosen and self.expression.uses_plane:
+            warnings.warn(AreamcWarning(
+                f"{{density}}: the expression {self.expression.text!r} uses x, y: metres on a plane chosen from the "
+                "data, whose origin moves with the data (other layers or another extent give other totals); "
+                "name the plane with {crs}, or write the expression in east, north (metres from the point "
+                "{origin} names, as LON,LAT degrees) or in lon, lat (degrees)",
+                params=("density", "crs", "origin")), stacklevel=2)
+
+    def coordinates(self, x, y) -> dict[str, np.ndarray]:
+        """The expression's coordinates at plane points `x`, `y` (metres): the one place they are computed.
+
+        Returns a dict with ``x``, ``y`` (plane metres) and, when the expression
+        uses them, ``lon``, ``lat`` (degrees) and ``east``, ``north`` (metres
+        from the origin, from ``lon``, ``lat``).
+        """
+        env = {"x": np.asarray(x, float), "y": np.asarray(y, float)}
+        if self._to_lonlat is not None:
+            lon, lat = self._to_lonlat.transform(env["x"], env["y"])
+            env["lon"], env["lat"] = np.asarray(lon, float), np.asarray(lat, float)
+        if self._to_origin is not None:
+            east, north = self._to_origin.transform(env["lon"], env["lat"])
+            env["east"], env["north"] = np.asarray(east, float), np.asarray(north, float)
+        return env
 
     def density(self, x, y):
         """Density (per m²) at plane points."""
-        env = {"x": np.asarray(x, float), "y": np.asarray(y, float)}
-        if self._to_lonlat is not None:
-            lon, lat = self._to_lonlat.transform(x, y)
-            env["lon"], env["lat"] = np.asarray(lon), np.asarray(lat)
-        value = self.expression.evaluate(**env)
+        value = self.expression.evaluate(**self.coordinates(x, y))
         bad = ~np.isfinite(value) | (value < 0)
         if bad.any():
             i = int(np.argmax(bad))
@@ -796,6 +909,8 @@ class DensitySpec:
         What raster cells hold (see :data:`RASTER_VALUES`).
     band : int
     count_field : str or None
+    origin : (lon, lat) or None
+        WGS84 degrees: the point ``east``, ``north`` of an expression are measured from.
     """
 
     kind: str
@@ -806,10 +921,12 @@ class DensitySpec:
     values: str = "count"
     band: int = 1
     count_field: str | None = None
+    origin: tuple[float, float] | None = None
 
     def to_dict(self) -> dict:
         return {"source": self.text, "kind": self.kind, "count_field": self.count_field,
-                "raster_values": self.values if self.kind == "raster" else None}
+                "raster_values": self.values if self.kind == "raster" else None,
+                "origin": None if self.origin is None else list(self.origin)}
 
 
 def guess_density_kind(text: str) -> str:
@@ -836,6 +953,7 @@ def read_density(
     count_field: str | None = None,
     values: str = "count",
     band: int = 1,
+    origin: tuple[float, float] | str | None = None,
 ) -> DensitySpec:
     """Read the density source `text` names, checking it fully before any sampling.
 
@@ -849,6 +967,10 @@ def read_density(
         Layer of the block file, and the attribute holding each block's count (needed for blocks).
     values, band
         For rasters: what a cell holds, and which band to read.
+    origin : (lon, lat) or "LON,LAT", optional
+        WGS84 degrees: the point an expression's ``east``, ``north`` (metres)
+        are measured from (:class:`ExpressionDensity`).  Needed when the
+        expression uses them; a warning says when it is not used.
     """
     if kind == "auto":
         kind = guess_density_kind(text)
@@ -857,6 +979,11 @@ def read_density(
                           param="density_kind")
     if values not in RASTER_VALUES:
         raise OptionError(f"{{param}}: unknown {values!r}; choose one of {', '.join(RASTER_VALUES)}", param="values")
+    if origin is not None:
+        origin = parse_origin(origin)
+        if kind != "expression":
+            _unused_origin(f"the density is a {'block layer' if kind == 'blocks' else kind}, not an expression")
+            origin = None
     if kind == "blocks":
         if not count_field:
             raise OptionError(f"{text}: a block layer needs {{param}}", param="count_field")
@@ -864,7 +991,8 @@ def read_density(
         return DensitySpec(kind, text, blocks=blocks, counts=block_counts(blocks, count_field),
                            count_field=count_field)
     if kind == "expression":
-        return DensitySpec(kind, text, expression=parse_expression(text))
+        expression = parse_expression(text)
+        return DensitySpec(kind, text, expression=expression, origin=expression_origin(expression, origin))
     return DensitySpec(kind, text, values=values, band=band)
 
 
@@ -880,7 +1008,7 @@ def build_density(spec: DensitySpec, plane: EqualAreaPlane, blocks: ProjectedLay
             raise ValueError("a block density needs its projected block layer")
         return BlockDensity(blocks, spec.counts)
     if spec.kind == "expression":
-        return ExpressionDensity(spec.expression, plane)
+        return ExpressionDensity(spec.expression, plane, origin=spec.origin)
     raster = RasterDensity(spec.text, plane, values=spec.values, band=spec.band)
     if regions is not None and not any(raster.overlaps(g) for g in regions.planar):
         raster.close()

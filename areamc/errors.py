@@ -17,6 +17,7 @@ from __future__ import annotations
 __all__ = [
     "AreamcError",
     "AreamcWarning",
+    "AreamcNotice",
     "InputError",
     "LayerError",
     "CRSError",
@@ -73,6 +74,11 @@ class AreamcWarning(_Named, UserWarning):
     def __init__(self, message: str = "", *, param: str | None = None, params: tuple[str, ...] = ()) -> None:
         self._setup(message, param, params)
         super().__init__(self.render())
+
+
+class AreamcNotice(AreamcWarning):
+    """A note on what areamc chose for the user (which layer of a file it read); the command line
+    prints it as ``areamc: note: ...`` and ``--quiet`` silences it, while warnings always show."""
 
 
 class InputError(AreamcError):

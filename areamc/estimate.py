@@ -39,7 +39,7 @@ class AreaEstimate:
     ----------
     estimate : float
         ``box_area * hits / points``.
-    stderr : float
+    std_error : float
         ``box_area * sqrt(p̂ (1 − p̂) / points)``.
     ci_low, ci_high : float
         Wilson score interval at `confidence`, scaled by `box_area`.
@@ -58,7 +58,7 @@ class AreaEstimate:
     """
 
     estimate: float
-    stderr: float
+    std_error: float
     ci_low: float
     ci_high: float
     points: int
@@ -85,7 +85,7 @@ class AreaEstimate:
         low, high = wilson_interval(hits, points, confidence)
         return cls(
             estimate=known + box_area * p,
-            stderr=box_area * math.sqrt(p * (1 - p) / points),
+            std_error=box_area * math.sqrt(p * (1 - p) / points),
             ci_low=known + box_area * float(low),
             ci_high=known + box_area * float(high),
             points=int(points),
@@ -109,12 +109,12 @@ class AreaEstimate:
             raise ValueError("a replicate interval needs at least two replicates")
         mean = total / replicates
         var = max(total_sq / replicates - mean * mean, 0.0) * replicates / (replicates - 1)
-        stderr = math.sqrt(var / replicates)
-        half = float(stats.t.isf((1 - confidence) / 2, replicates - 1)) * stderr
+        std_error = math.sqrt(var / replicates)
+        half = float(stats.t.isf((1 - confidence) / 2, replicates - 1)) * std_error
         estimate = known + mean
         return cls(
             estimate=estimate,
-            stderr=stderr,
+            std_error=std_error,
             ci_low=max(known, estimate - half),
             ci_high=min(known + span, estimate + half),
             points=int(points),
@@ -142,7 +142,7 @@ class AreaEstimate:
         (floored standard error) turned into the normal score of the same tail.
         """
         if self.replicates:
-            scale = deviation_scale(self.stderr, self.ci_low, self.ci_high, self.confidence)
+            scale = deviation_scale(self.std_error, self.ci_low, self.ci_high, self.confidence)
             return t_deviation(normal_deviation(self.estimate, exact, scale), self.replicates - 1)
         if self.box_area == 0:
             return normal_deviation(self.estimate, exact, 0.0)
@@ -158,11 +158,11 @@ class TotalEstimate:
 
     Attributes
     ----------
-    estimate, stderr : float
+    estimate, std_error : float
         In the units of ``scale x score`` (for a density in persons per m²
         sampled in a box of m², persons).
     ci_low, ci_high : float
-        Normal interval ``estimate ± z stderr`` from the sample variance
+        Normal interval ``estimate ± z std_error`` from the sample variance
         (the central limit theorem; the sample sizes here are thousands of
         points, where Student's t and the normal quantile agree to < 0.1%).
     points : int
@@ -170,7 +170,7 @@ class TotalEstimate:
     """
 
     estimate: float
-    stderr: float
+    std_error: float
     ci_low: float
     ci_high: float
     points: int
@@ -182,7 +182,7 @@ class TotalEstimate:
 
     def deviation(self, exact: float) -> float:
         """Deviation from an exact value in standard errors (floored; see :func:`~areamc.checks.deviation_scale`)."""
-        scale = deviation_scale(self.stderr, self.ci_low, self.ci_high, self.confidence)
+        scale = deviation_scale(self.std_error, self.ci_low, self.ci_high, self.confidence)
         return normal_deviation(self.estimate, exact, scale)
 
     def to_dict(self) -> dict:
@@ -195,10 +195,10 @@ def mean_estimate(total: float, total_sq: float, n: int, scale: float, confidenc
         raise ValueError("a mean interval needs at least two points")
     mean = total / n
     var = max(total_sq / n - mean * mean, 0.0) * n / (n - 1)
-    stderr = scale * math.sqrt(var / n)
+    std_error = scale * math.sqrt(var / n)
     estimate = scale * mean
-    low, high = normal_interval(estimate, stderr, confidence)
-    return TotalEstimate(estimate, stderr, low, high, int(n), float(confidence))
+    low, high = normal_interval(estimate, std_error, confidence)
+    return TotalEstimate(estimate, std_error, low, high, int(n), float(confidence))
 
 
 def area_precision(box_area: float, confidence: float):

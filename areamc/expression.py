@@ -1,8 +1,11 @@
 """Safe arithmetic expressions over coordinate arrays, for density functions.
 
 The text is parsed with :mod:`ast` and only a fixed set of node types is
-evaluated, directly over numpy arrays: numbers, the names ``x``, ``y``
-(plane metres), ``lon``, ``lat`` (degrees), ``pi`` and ``e``; the operators
+evaluated, directly over numpy arrays: numbers, the coordinates of
+:data:`VARIABLES` (``lon``, ``lat`` in degrees; ``east``, ``north`` in metres
+from a named origin; ``x``, ``y`` in metres of the computation plane; see
+:class:`areamc.density.ExpressionDensity` for how each is computed), ``pi``
+and ``e``; the operators
 ``+ - * / ** %``, unary ``-`` and ``+``, comparisons (giving 1.0 or 0.0); and
 calls of the functions in :data:`FUNCTIONS` with positional arguments.
 Anything else (other names, attribute access, subscripts, lambdas, keyword
@@ -21,7 +24,8 @@ import numpy as np
 
 from .errors import OptionError
 
-__all__ = ["FUNCTIONS", "ARITY", "VARIABLES", "MAX_LENGTH", "MAX_DEPTH", "Expression", "parse_expression"]
+__all__ = ["FUNCTIONS", "ARITY", "VARIABLES", "LONLAT_NAMES", "ORIGIN_NAMES", "PLANE_NAMES", "MAX_LENGTH", "MAX_DEPTH",
+           "Expression", "parse_expression"]
 
 FUNCTIONS: dict[str, Callable] = {
     "exp": np.exp,
@@ -53,7 +57,14 @@ ARITY: dict[str, tuple[int, int]] = {
 #: Longest expression text accepted, in characters, and deepest nesting of operations.
 MAX_LENGTH = 2_000
 MAX_DEPTH = 100
-VARIABLES = ("x", "y", "lon", "lat")
+#: The coordinates an expression may use: ``lon``, ``lat`` (WGS84 degrees); ``east``, ``north``
+#: (metres east and north of a named origin, on the Lambert azimuthal equal-area plane centred
+#: there); ``x``, ``y`` (metres of the computation plane, from its own origin).
+VARIABLES = ("lon", "lat", "east", "north", "x", "y")
+#: The same, by kind.
+LONLAT_NAMES = frozenset({"lon", "lat"})
+ORIGIN_NAMES = frozenset({"east", "north"})
+PLANE_NAMES = frozenset({"x", "y"})
 CONSTANTS = {"pi": np.pi, "e": np.e}
 
 _BINARY = {
@@ -98,7 +109,7 @@ class Expression:
     names: frozenset
 
     def evaluate(self, **variables: np.ndarray) -> np.ndarray:
-        """Evaluate over arrays ``x``, ``y`` (plane metres) and ``lon``, ``lat`` (degrees)."""
+        """Evaluate over coordinate arrays named as in :data:`VARIABLES` (those the expression uses, same shape)."""
         try:
             with np.errstate(all="ignore"):
                 value = _eval(self.tree.body, variables)
@@ -110,7 +121,18 @@ class Expression:
 
     @property
     def uses_lonlat(self) -> bool:
-        return bool(self.names & {"lon", "lat"})
+        """True when the expression uses ``lon`` or ``lat`` (degrees)."""
+        return bool(self.names & LONLAT_NAMES)
+
+    @property
+    def uses_origin(self) -> bool:
+        """True when the expression uses ``east`` or ``north`` (metres from a named origin)."""
+        return bool(self.names & ORIGIN_NAMES)
+
+    @property
+    def uses_plane(self) -> bool:
+        """True when the expression uses ``x`` or ``y`` (metres of the computation plane)."""
+        return bool(self.names & PLANE_NAMES)
 
 
 def _fail(text: str, node: ast.AST, what: str, verdict: str = "not allowed"):

@@ -51,7 +51,7 @@ class IntegrateRow:
     ----------
     feature_index : int
         Position of the region in its layer as read (0-based; ``Layer.indices``).
-    estimate, stderr, ci_low, ci_high : float
+    estimate, std_error, ci_low, ci_high : float
         Total (count unit of the source, e.g. persons), standard error and
         interval (Wilson for importance sampling over units, normal for grid and uniform sampling).
     mean_density : float
@@ -83,7 +83,7 @@ class IntegrateRow:
     id: str
     feature_index: int
     estimate: float
-    stderr: float
+    std_error: float
     ci_low: float
     ci_high: float
     mean_density: float
@@ -111,7 +111,7 @@ class IntegrateReport:
     source: str
 
     def metadata(self) -> dict:
-        return {**self.run.to_dict(), "density_source": self.source}
+        return self.run.to_dict()
 
 
 def integrate_density(
@@ -231,7 +231,7 @@ def _integrate_region(job: _IntegrateJob, r: int) -> _RegionTotal:
     z = est.deviation(truth) if truth is not None else None
     effective = effective_points(run, view, truth)
     row = IntegrateRow(
-        id=rid, feature_index=regions.source.indices[r], estimate=est.estimate, stderr=est.stderr,
+        id=rid, feature_index=regions.source.indices[r], estimate=est.estimate, std_error=est.std_error,
         ci_low=est.ci_low, ci_high=est.ci_high,
         mean_density=float(est.estimate / areas[r]) if areas[r] > 0 else math.nan, region_area=float(areas[r]),
         points=run.points, method=run.method, exact=truth, z=z, flagged=flagged(z),

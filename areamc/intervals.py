@@ -78,7 +78,7 @@ def _wilson_scalar(hits: float, n: float, z: float) -> tuple[float, float]:
     return (0.0 if hits == 0 else low), (1.0 if hits == n else high)
 
 
-def normal_interval(estimate: float, stderr: float, confidence: float) -> tuple[float, float]:
-    """``estimate ± z stderr``, the normal interval of a mean from its sample variance."""
+def normal_interval(estimate: float, std_error: float, confidence: float) -> tuple[float, float]:
+    """``estimate ± z std_error``, the normal interval of a mean from its sample variance."""
     z = z_for(confidence)
-    return estimate - z * stderr, estimate + z * stderr
+    return estimate - z * std_error, estimate + z * std_error

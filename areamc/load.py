@@ -29,7 +29,7 @@ import pyproj
 import shapely
 from shapely.geometry import shape
 
-from .errors import AreamcWarning, CRSError, LayerError, OptionError
+from .errors import AreamcNotice, AreamcWarning, CRSError, LayerError, OptionError
 from . import globe
 
 __all__ = ["Layer", "read_layer", "list_layers", "parse_crs", "layer_from_geometries", "MAX_PLANE_COORDINATE_M"]
@@ -44,6 +44,8 @@ MAX_PLANE_COORDINATE_M = 1e8
 _MAX_LON_DEG, _MAX_LAT_DEG = 360.0, 90.0
 #: Duplicated ids named in a refusal; the rest are counted ("and N more").
 _DUPLICATES_NAMED = 3
+#: Duplicated ids named in the warning on kept duplicates; the rest are counted.
+_DUPLICATES_WARNED = 5
 
 
 @dataclass(frozen=True)
@@ -77,6 +79,13 @@ class Layer:
         Position of each kept feature in the layer as read (0-based, counting
         empty and skipped features): result rows carry it as ``feature_index``,
         which tells features apart when ids repeat.  Default ``0, 1, 2, ...``.
+    reach_circles : int
+        How many features are geodesic circles drawn round points with a reach
+        (:func:`~areamc.zones.read_zones`): their extent is a straight-line distance.
+    fields : tuple of (str, str)
+        Each attribute field's name and type as the file's schema declares it, in file
+        order (fiona's types: ``"str:40"``, ``"int"``, ``"float"``, ``"date"``, ...);
+        empty for a layer built in memory.
     """
 
     path: str
@@ -91,6 +100,8 @@ class Layer:
     empty: tuple[str, ...] = ()
     skipped: tuple[str, ...] = ()
     indices: tuple[int, ...] = ()
+    reach_circles: int = 0
+    fields: tuple[tuple[str, str], ...] = ()
 
     def __post_init__(self) -> None:
         if not self.indices:
@@ -183,6 +194,7 @@ def read_layer(
     kind: str = "polygon",
     encoding: str | None = None,
     allow_duplicate_ids: bool = False,
+    describing: bool = False,
 ) -> Layer:
     """Read a polygon (or point) layer.
 
@@ -207,7 +219,12 @@ def read_layer(
         (a Shapefile's ``.cpg``).
     allow_duplicate_ids : bool
         Accept features that share an id (default: refused, naming the
-        duplicated values); rows then tell them apart by ``feature_index``.
+        duplicated values); rows then tell them apart by ``feature_index``,
+        and a warning names the repeated values.
+    describing : bool
+        The layer is only described (``areamc inspect``), never joined back:
+        shared ids are kept whatever `allow_duplicate_ids` says, with the
+        same warning.
 
     Returns
     -------
@@ -234,7 +251,7 @@ def read_layer(
             raise LayerError(f"{path}: holds no vector layers")
         layer = names[0]
         if len(names) > 1:
-            warnings.warn(AreamcWarning(
+            warnings.warn(AreamcNotice(
                 f"{path}: holds {len(names)} layers; using the first, {layer!r} (the others: "
                 f"{_some([repr(n) for n in names[1:]])}); choose one with {{param}}", param="layer"), stacklevel=2)
     elif layer not in names:
@@ -246,7 +263,8 @@ def read_layer(
     try:
         with watch, fiona.open(path, layer=layer, encoding=encoding) as src:
             crs = _layer_crs(src, path, input_crs)
-            fields = list(src.schema.get("properties", {}))
+            schema = tuple((str(k), str(v)) for k, v in src.schema.get("properties", {}).items())
+            fields = [name for name, _ in schema]
             if id_field is not None and id_field not in fields:
                 raise LayerError(
                     f"{path}: {{param}} {id_field!r} is not a field of layer {layer!r}; "
@@ -260,7 +278,8 @@ def read_layer(
     except (fiona.errors.FionaError, OSError, ValueError, LookupError) as err:
         raise LayerError(f"{path}: cannot read layer {layer!r} ({_short(err)})") from err
     watch.check(path, len(records), declared, encoding)
-    return _build_layer(path, layer, crs, records, id_field, kind, allow_duplicate_ids)
+    return _build_layer(path, layer, crs, records, id_field, kind, allow_duplicate_ids, fields=schema,
+                        describing=describing)
 
 
 def _check_encoding(encoding: str) -> None:
@@ -398,7 +417,8 @@ class _Collect(logging.Handler):
         self._note_record(record)
 
 
-def _build_layer(path, layer, crs, records, id_field, kind, allow_duplicate_ids=False) -> Layer:
+def _build_layer(path, layer, crs, records, id_field, kind, allow_duplicate_ids=False, *, fields=(),
+                 describing=False) -> Layer:
     """Turn records into a :class:`Layer`: geometries made and checked for the whole layer at once.
 
     Each record becomes a shapely geometry; the checks on coordinates and
@@ -469,7 +489,7 @@ def _build_layer(path, layer, crs, records, id_field, kind, allow_duplicate_ids=
     wanted = {"polygon": "polygons", "point": "points"}.get(kind, "polygons or points")
     if not ids:
         raise LayerError(f"{source}: no {wanted} to work with ({_describe(types)})")
-    _check_duplicates(source, ids, id_field, allow_duplicate_ids)
+    _check_duplicates(source, ids, id_field, allow_duplicate_ids, describing)
     if repaired:
         warnings.warn(
             f"{source}: repaired {len(repaired)} invalid polygon(s) with make_valid: "
@@ -506,6 +526,7 @@ def _build_layer(path, layer, crs, records, id_field, kind, allow_duplicate_ids=
         empty=tuple(empty),
         skipped=tuple(skipped),
         indices=tuple(indices),
+        fields=tuple(fields),
     )
 
 
@@ -638,22 +659,49 @@ def _short_ring(data) -> int | None:
     return None
 
 
-def _check_duplicates(source: str, ids: list[str], id_field: str | None, allowed: bool) -> None:
-    """Refuse ids that label more than one kept feature, naming a few; with `allowed`, warn instead."""
+def _check_duplicates(source: str, ids: list[str], id_field: str | None, allowed: bool,
+                      describing: bool = False) -> None:
+    """Refuse ids that label more than one kept feature, naming a few; with `allowed` or
+    `describing`, warn instead (:func:`_duplicates_warning`)."""
     counts = Counter(ids)
     repeated = [value for value, n in counts.items() if n > 1]
     if not repeated:
         return
-    named = ", ".join(f"{value!r} ({counts[value]} features)" for value in repeated[:_DUPLICATES_NAMED])
-    if len(repeated) > _DUPLICATES_NAMED:
-        named += f" and {len(repeated) - _DUPLICATES_NAMED} more"
     what = f"{{id_field}} {id_field!r} has duplicate values" if id_field else "duplicate ids"
     params = ("id_field", "allow_duplicate_ids") if id_field else ("allow_duplicate_ids",)
-    if not allowed:
-        raise LayerError(f"{source}: {what}: {named}; ids must tell features apart, or pass "
-                         "{allow_duplicate_ids} to keep them (rows then carry feature_index)", params=params)
-    warnings.warn(AreamcWarning(f"{source}: {what}: {named}; kept ({{allow_duplicate_ids}}): "
-                                "rows tell them apart by feature_index", params=params), stacklevel=4)
+    if not (allowed or describing):
+        raise LayerError(f"{source}: {what}: {_repeats(counts, repeated, _DUPLICATES_NAMED)}; ids must tell "
+                         "features apart, or pass {allow_duplicate_ids} to keep them (rows then carry "
+                         "feature_index)", params=params)
+    warnings.warn(_duplicates_warning(source, what, counts, repeated, id_field, describing, params), stacklevel=4)
+
+
+def _repeats(counts: Counter, repeated: list[str], most: int) -> str:
+    """The first `most` repeated values with their feature counts, the rest counted ("and N more")."""
+    named = ", ".join(f"{value!r} ({counts[value]} features)" for value in repeated[:most])
+    if len(repeated) > most:
+        named += f" and {len(repeated) - most} more"
+    return named
+
+
+def _duplicates_warning(source, what, counts, repeated, id_field, describing, params) -> AreamcWarning:
+    """The one wording of the warning on kept duplicate ids, for every command.
+
+    It names the field, how many values repeat and up to :data:`_DUPLICATES_WARNED` of them,
+    and says that results could not be joined back by that field.  A layer kept by
+    ``allow_duplicate_ids`` says its rows are told apart by ``feature_index``; a layer only
+    described (``describing``) says that the other jobs refuse the field without that parameter.
+    """
+    n = len(repeated)
+    repeat = f"{n} value repeats" if n == 1 else f"{n} values repeat"
+    by = repr(id_field) if id_field else "id"
+    named = _repeats(counts, repeated, _DUPLICATES_WARNED)
+    joined = f"{repeat}, so results could not be joined back by {by}"
+    if describing:
+        text = f"{source}: {what}: {named}; {joined}; other jobs refuse it unless given {{allow_duplicate_ids}}"
+    else:
+        text = f"{source}: {what}: {named}; kept ({{allow_duplicate_ids}}): {joined}; rows tell them apart by feature_index"
+    return AreamcWarning(text, params=params)
 
 
 def _counts(types: Counter) -> str:

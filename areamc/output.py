@@ -37,6 +37,10 @@ __all__ = [
     "OutputBatch",
     "cannot_write",
     "format_number",
+    "decimals_for",
+    "legend",
+    "wrap",
+    "WIDTH",
     "SHAPEFILE_PARTS",
     "SQLITE_SIDECARS",
 ]
@@ -45,24 +49,79 @@ FORMATS = ("table", "csv", "json")
 
 
 class Column:
-    """A column of a result table: field name, heading, and whether it holds an area."""
+    """A column of a result table: field name, heading, unit handling and rounding.
 
-    __slots__ = ("field", "heading", "area", "per_area", "spec")
+    `heading` is the field name, or (in a table with a prefix, see :func:`table`) the field
+    name without that prefix.  `area` marks a field holding an area (m², converted to
+    ``--units``), `per_area` one holding a density per m² (converted to per ``--units``).
+    `error` names the field holding the standard error of this column's value, in the same
+    unit, or is a callable of the (converted) row giving it: the value is then rounded to
+    the error's two leading digits (:func:`decimals_for`).  `spec` is a fixed format used
+    when there is no error to round to.
+    """
+
+    __slots__ = ("field", "heading", "area", "per_area", "spec", "error")
 
     def __init__(
-        self, field: str, heading: str | None = None, *, area: bool = False, per_area: bool = False, spec: str | None = None
+        self, field: str, heading: str | None = None, *, area: bool = False, per_area: bool = False,
+        spec: str | None = None, error=None,
     ) -> None:
         self.field = field
         self.heading = heading or field
         self.area = area
         self.per_area = per_area
         self.spec = spec
+        self.error = error
 
-    def text(self, value) -> str:
-        """The table cell for `value`."""
-        if self.spec and isinstance(value, float) and math.isfinite(value):
-            return format(value, self.spec)
+    def error_of(self, row: dict) -> float | None:
+        """The standard error that rounds this column's value in `row`, or None."""
+        if self.error is None:
+            return None
+        value = self.error(row) if callable(self.error) else row.get(self.error)
+        if isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value) and value > 0:
+            return float(value)
+        return None
+
+    def text(self, value, decimals: int | None = None) -> str:
+        """The table cell for `value`: with `decimals` (from the error, see :meth:`cells`), that many."""
+        if isinstance(value, float) and math.isfinite(value):
+            if decimals is not None:
+                return _no_negative_zero(f"{value:,.{decimals}f}")
+            if self.spec:
+                return _no_negative_zero(format(value, self.spec))
         return format_number(value)
+
+    def cells(self, rows: Sequence[dict]) -> list[str]:
+        """The column's cells for `rows`, each rounded to its row's error; a row whose error is zero
+        or missing (an exact row) gets the most decimals any other row of the column got."""
+        if self.error is None:
+            return [self.text(row.get(self.field)) for row in rows]
+        errors = [self.error_of(row) for row in rows]
+        decimals = [None if e is None else decimals_for(e) for e in errors]
+        known = [d for d in decimals if d is not None]
+        fallback = max(known) if known else None
+        return [self.text(row.get(self.field), fallback if d is None else d) for row, d in zip(rows, decimals)]
+
+
+#: Significant digits of a standard error kept in tables: two (common practice in reporting
+#: measurements, e.g. Taylor & Kuyatt 1994, NIST Technical Note 1297, §7).
+ERROR_DIGITS = 2
+
+
+def decimals_for(error: float) -> int:
+    """Decimals that keep the first :data:`ERROR_DIGITS` significant digits of `error` (> 0).
+
+    >>> decimals_for(0.62), decimals_for(0.0022), decimals_for(37.0), decimals_for(1234.0)
+    (2, 4, 0, 0)
+    """
+    return max(0, ERROR_DIGITS - 1 - int(math.floor(math.log10(error))))
+
+
+def _no_negative_zero(text: str) -> str:
+    """``-0.00`` becomes ``0.00``: a value that rounds to zero carries no sign."""
+    if text.startswith("-") and not any(ch in "123456789" for ch in text):
+        return text[1:]
+    return text
 
 
 def convert_rows(rows: Iterable[dict], columns: Sequence[Column], units: str) -> list[dict]:
@@ -104,20 +163,83 @@ def format_number(value) -> str:
     return str(value)
 
 
-def table(rows: Sequence[dict], columns: Sequence[Column], units: str) -> str:
-    """Render rows (areas in m²) as an aligned text table with areas in `units`."""
-    return _table(convert_rows(rows, columns, units), columns, (), ())
+def table(rows: Sequence[dict], columns: Sequence[Column], units: str, *, prefix: str = "",
+          fields: Sequence[Column] = ()) -> str:
+    """Render rows (areas in m²) as an aligned text table with areas in `units`.
+
+    With a `prefix`, a heading may be its field's name without the prefix; a legend line under
+    the table spells those fields out.  `fields` are further columns to convert (those that
+    the columns' errors use).
+    """
+    converted = convert_rows(rows, tuple(columns) + tuple(fields), units)
+    return _table(converted, columns, (), legend(columns, prefix))
+
+
+def legend(columns: Sequence[Column], prefix: str = "") -> list[str]:
+    """The legend lines of a table: the fields whose headings drop `prefix` (none when every
+    heading is its field's name).  Raises ValueError for any other kind of heading."""
+    short = []
+    for column in columns:
+        if column.heading == column.field:
+            continue
+        if not prefix or prefix + column.heading != column.field:
+            raise ValueError(f"heading {column.heading!r} is neither field {column.field!r} nor it without {prefix!r}")
+        short.append(column.heading)
+    if not short:
+        return []
+    return wrap(f"({', '.join(short)}: the fields {prefix}<heading>)")
+
+
+#: Width that every default table, header and footer line keeps to (a terminal of 100 columns).
+WIDTH = 100
+
+
+def wrap(text: str, indent: str = "") -> list[str]:
+    """`text` broken into lines of at most :data:`WIDTH` characters (continuations indented)."""
+    import textwrap
+
+    return textwrap.wrap(text, WIDTH, subsequent_indent=indent or "  ", break_on_hyphens=False) or [""]
+
+
+def _numeric(cell: str) -> bool:
+    body = cell.replace(",", "").lstrip("-")
+    return body.replace(".", "", 1).isdigit() or body in ("inf", "nan") or "e" in body and _is_float(body)
+
+
+def _is_float(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def _align(cells: list[str], heading: str) -> tuple[list[str], bool]:
+    """Cells of one column, padded so that decimal points line up, and whether it is numeric
+    (right-aligned); a column holding any text that is not a number (ids, tokens) is not."""
+    filled = [c for c in cells if c not in ("", "-")]
+    if not filled or not all(_numeric(c) for c in filled):
+        return cells, False
+    lefts = [c.split(".", 1)[0] for c in cells]
+    rights = ["." + c.split(".", 1)[1] if "." in c else "" for c in cells]
+    wl = max(len(x) for x in lefts)
+    wr = max(len(x) for x in rights)
+    body = [left.rjust(wl) + right.ljust(wr) for left, right in zip(lefts, rights)]
+    return body, True
 
 
 def _table(rows: list[dict], columns: Sequence[Column], header: Sequence[str], footer: Sequence[str]) -> str:
-    cells = [[c.heading for c in columns]]
-    cells += [[c.text(row.get(c.field)) for c in columns] for row in rows]
-    widths = [max(len(r[i]) for r in cells) for i in range(len(columns))]
+    body = [c.cells(rows) for c in columns]
+    aligned, numeric = zip(*(_align(cells, c.heading) for cells, c in zip(body, columns))) if columns else ((), ())
+    widths = [max(len(c.heading), *(len(x) for x in col)) if col else len(c.heading)
+              for col, c in zip(aligned, columns)]
     lines = list(header)
-    for n, r in enumerate(cells):
-        lines.append("  ".join(v.ljust(w) if i == 0 else v.rjust(w) for i, (v, w) in enumerate(zip(r, widths))).rstrip())
-        if n == 0:
-            lines.append("  ".join("-" * w for w in widths))
+    head = [c.heading.rjust(w) if num else c.heading.ljust(w) for c, w, num in zip(columns, widths, numeric)]
+    lines.append("  ".join(head).rstrip())
+    lines.append("  ".join("-" * w for w in widths))
+    for n in range(len(rows)):
+        lines.append("  ".join(col[n].rjust(w) if num else col[n].ljust(w)
+                               for col, w, num in zip(aligned, widths, numeric)).rstrip())
     lines += list(footer)
     return "\n".join(lines) + "\n"
 
@@ -160,13 +282,17 @@ def render(
     metadata: dict,
     header: Sequence[str] = (),
     footer: Sequence[str] = (),
+    fields: Sequence[Column] = (),
 ) -> str:
     """Render rows (areas in m²) in `fmt` with areas converted to `units`.
+
+    `fields` are further columns to convert (every area field of the rows, for CSV and JSON,
+    and those that the table's rounding errors use).
 
     ``table`` shows `columns` with `header` and `footer` lines; ``csv`` has
     every field of the rows; ``json`` is ``{**metadata, "units": ..., "results": rows}``.
     """
-    converted = convert_rows(rows, columns, units)
+    converted = convert_rows(rows, tuple(columns) + tuple(fields), units)
     if fmt == "table":
         return _table(converted, columns, header, footer)
     if fmt == "csv":

@@ -80,7 +80,7 @@ class OverlapRow:
     feature_index_a: int
     feature_index_b: int
     estimate: float
-    stderr: float
+    std_error: float
     ci_low: float
     ci_high: float
     share_a: float
@@ -111,11 +111,11 @@ class MultiplicityRow:
     area_exactly_ci_low: float
     area_exactly_ci_high: float
     area_at_least: float
-    area_at_least_stderr: float
+    area_at_least_std_error: float
     area_at_least_ci_low: float
     area_at_least_ci_high: float
-    exact_area_exactly: float | None
-    exact_area_at_least: float | None
+    area_exactly_exact: float | None
+    area_at_least_exact: float | None
     z: float | None
     flagged: bool
 
@@ -329,7 +329,7 @@ def _overlap_item(job: _OverlapJob, n: int):
     z = est.deviation(planar) if planar is not None else None
     row = OverlapRow(
         id_a=a.ids[i], id_b=other.ids[j], feature_index_a=a.source.indices[i],
-        feature_index_b=other.source.indices[j], estimate=est.estimate, stderr=est.stderr,
+        feature_index_b=other.source.indices[j], estimate=est.estimate, std_error=est.std_error,
         ci_low=est.ci_low, ci_high=est.ci_high, share_a=share_a, share_b=share_b,
         points=est.points, hits=est.hits, box_area=est.box_area, exact_planar=planar,
         z=z, flagged=flagged(z), stop_reason=run.reason, pilot_points=run.pilot_points,
@@ -376,10 +376,10 @@ def _profile_rows(column_hits, points: int, box_area: float, ks, confidence: flo
             MultiplicityRow(
                 k=int(k), area_exactly=only.estimate, area_exactly_ci_low=only.ci_low,
                 area_exactly_ci_high=only.ci_high, area_at_least=least.estimate,
-                area_at_least_stderr=least.stderr, area_at_least_ci_low=least.ci_low,
+                area_at_least_std_error=least.std_error, area_at_least_ci_low=least.ci_low,
                 area_at_least_ci_high=least.ci_high,
-                exact_area_exactly=exact_k.get(int(k), 0.0) if exact_k is not None else None,
-                exact_area_at_least=exact_least, z=z, flagged=flagged(z),
+                area_exactly_exact=exact_k.get(int(k), 0.0) if exact_k is not None else None,
+                area_at_least_exact=exact_least, z=z, flagged=flagged(z),
             )
         )
     return tuple(rows)
@@ -592,7 +592,7 @@ def _shared_rows(job: _OverlapJob, box: Box, points: int, counts: np.ndarray, re
         z = float(z_all[n]) if z_all is not None else None
         rows.append(OverlapRow(
             id_a=a.ids[i], id_b=other.ids[j], feature_index_a=a.source.indices[i],
-            feature_index_b=other.source.indices[j], estimate=est.estimate, stderr=est.stderr,
+            feature_index_b=other.source.indices[j], estimate=est.estimate, std_error=est.std_error,
             ci_low=est.ci_low, ci_high=est.ci_high, share_a=share_a, share_b=share_b,
             points=est.points, hits=est.hits, box_area=est.box_area, exact_planar=planar,
             z=z, flagged=flagged(z), stop_reason=reason, pilot_points=pilot,

@@ -102,8 +102,8 @@ class EqualAreaPlane:
         return {
             "crs": self.label,
             "name": self.crs.name,
-            "chosen_from_extent": self.chosen,
-            "measured_area_distortion": self.distortion,
+            "chosen_from_data": self.chosen,
+            "area_distortion": self.distortion,
             "wkt": self.crs.to_wkt(),
         }
 

@@ -75,7 +75,7 @@ class RunInfo:
         """Metadata for result files; the seed is also given as a string, which JSON readers do not round."""
         return {
             "job": self.job,
-            "equal_area_crs": self.plane.to_dict(),
+            "plane": self.plane.to_dict(),
             "confidence": self.confidence,
             "seed": self.seed_entropy,
             "seed_text": str(self.seed_entropy),

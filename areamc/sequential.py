@@ -36,7 +36,7 @@ __all__ = [
 ]
 
 MEETS = "meets"
-FALLS_SHORT = "falls short"
+FALLS_SHORT = "falls-short"
 UNDECIDED = "undecided"
 
 #: Jeffreys prior Beta(1/2, 1/2) for the mixture: fixed before any data, as validity requires.
@@ -104,9 +104,9 @@ def verdict(hits: int, n: int, claim: float, confidence: float, prior: tuple[flo
     """Decide "share ≥ claim" from counts, valid at any stopping time.
 
     "meets" when the claimed share lies below the whole confidence sequence,
-    "falls short" when it lies above it, "undecided" while it lies inside.
+    "falls-short" when it lies above it, "undecided" while it lies inside.
     The probability of ever answering "meets" when the true share is below
-    the claim (or "falls short" when it is at or above) is at most
+    the claim (or "falls-short" when it is at or above) is at most
     ``1 − confidence``.
     """
     if n <= 0:

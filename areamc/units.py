@@ -11,7 +11,7 @@ import re
 
 from .errors import OptionError
 
-__all__ = ["AREA_UNITS", "DISTANCE_UNITS", "area_factor", "parse_distance"]
+__all__ = ["AREA_UNITS", "DISTANCE_UNITS", "area_factor", "distance_factor", "parse_distance"]
 
 #: Square metres per unit.  The acre and the square mile are the international
 #: (1959) definitions: 1 ft = 0.3048 m, 1 acre = 43 560 ft², 1 mi = 5280 ft
@@ -41,6 +41,16 @@ def area_factor(unit: str) -> float:
         ) from None
 
 
+def distance_factor(unit: str, param: str = "radius_unit") -> float:
+    """Return the number of metres in one `unit` (m, km, mi); `param` names the option at fault."""
+    try:
+        return DISTANCE_UNITS[unit.lower()]
+    except (KeyError, AttributeError):
+        raise OptionError(
+            f"{{param}}: unknown distance unit {unit!r}; choose one of {', '.join(DISTANCE_UNITS)}", param=param
+        ) from None
+
+
 _DISTANCE_RE = re.compile(r"^\s*([-+0-9.eE]+)\s*([a-zA-Z]*)\s*$")
 
 
@@ -54,15 +64,11 @@ def parse_distance(text: str, param: str = "radius_m") -> float:
     if not match:
         raise OptionError(f"{{param}}: cannot read distance {text!r}; write e.g. 5km, 800m or 3mi", param=param)
     number, unit = match.groups()
-    unit = unit.lower() or "m"
-    if unit not in DISTANCE_UNITS:
-        raise OptionError(
-            f"{{param}}: unknown distance unit {unit!r}; choose one of {', '.join(DISTANCE_UNITS)}", param=param
-        )
+    factor = distance_factor(unit or "m", param=param)
     try:
         value = float(number)
     except ValueError:
         raise OptionError(f"{{param}}: cannot read distance {text!r}", param=param) from None
     if not value > 0 or value == float("inf"):
         raise OptionError(f"{{param}}: distance must be positive and finite, got {text!r}", param=param)
-    return value * DISTANCE_UNITS[unit]
+    return value * factor

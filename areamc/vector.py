@@ -74,8 +74,12 @@ def _value(v, field_type: str):
 
 
 def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, layer: str, *,
-                   batch: OutputBatch | None = None) -> None:
+                   batch: OutputBatch | None = None, description: str | None = None) -> None:
     """Write `rows` as attributes of `geometries` (shapely, in `crs`) to a GeoPackage or GeoJSON file.
+
+    `description` (a caution, for example) becomes the layer's description: the GeoPackage's
+    ``gpkg_contents.description`` and the GeoJSON file's ``description`` member (GDAL's
+    DESCRIPTION layer creation option).
 
     The file is written under a temporary name beside `path` and renamed into
     place (when `batch` commits, if given), so a failure leaves no partial
@@ -93,8 +97,9 @@ def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, lay
     with nullcontext(batch) if batch is not None else OutputBatch() as files:
         with files.staging(path, suffix, create=False) as tmp:
             try:
+                options = {"DESCRIPTION": description} if description else {}
                 with fiona.open(tmp, "w", driver=driver, schema=schema, crs=FionaCRS.from_wkt(crs.to_wkt()),
-                                layer=layer) as dst:
+                                layer=layer, **options) as dst:
                     for geom, row in zip(geometries, rows):
                         props = {f: _value(v, types[f]) for f, v in row.items()}
                         dst.write({"geometry": shapely.geometry.mapping(geom), "properties": props})

@@ -148,7 +148,7 @@ class WeightedRun:
         return total * total / square if square > 0 else 0.0
 
     def share(self, column: int, confidence: float) -> tuple[float, float, float, float]:
-        """(share, stderr, low, high) of the region's weight falling in a covered set."""
+        """(share, std_error, low, high) of the region's weight falling in a covered set."""
         if self.method == STRATA:
             return self._strata_share(column, confidence)
         b = float(self.sums[0])

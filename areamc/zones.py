@@ -22,6 +22,7 @@ from .errors import AreamcWarning, LayerError, OptionError
 from .load import Layer, read_layer
 from .geodesy import WGS84
 from .project import LONLAT, transform_geometries, transform_geometry, transformer
+from .units import distance_factor
 
 __all__ = ["geodesic_circle", "zones_from_points", "read_zones", "DEFAULT_VERTICES", "MAX_CIRCLE_VERTICES"]
 
@@ -98,6 +99,7 @@ def zones_from_points(
     radius_field: str | None = None,
     vertices: int = DEFAULT_VERTICES,
     vertex_cap: int = MAX_CIRCLE_VERTICES,
+    radius_unit: str = "m",
 ) -> Layer:
     """Turn a point layer into a polygon layer of geodesic circles, in WGS84 lon/lat.
 
@@ -108,11 +110,13 @@ def zones_from_points(
     radius_m : float, optional
         One reach for every point, metres.
     radius_field : str, optional
-        Attribute holding each point's reach in metres (positive, not missing).
+        Attribute holding each point's reach (positive, not missing), in `radius_unit`.
     vertices : int
         Vertices per circle, at least 8 and at most `vertex_cap`.
     vertex_cap : int
         Most vertices per circle accepted (:data:`MAX_CIRCLE_VERTICES`); raise it knowingly.
+    radius_unit : {"m", "km", "mi"}
+        Unit of the values in `radius_field` (default metres; :data:`~areamc.units.DISTANCE_UNITS`).
 
     Returns
     -------
@@ -133,10 +137,12 @@ def zones_from_points(
     if radius_field is not None and layer.properties and radius_field not in layer.properties[0]:
         fields = ", ".join(layer.properties[0]) or "(none)"
         raise LayerError(f"{layer.source}: {{param}} {radius_field!r} is not a field; fields: {fields}", param="radius_field")
+    per_unit = distance_factor(radius_unit, param="radius_unit")
     to_lonlat = transformer(layer.crs, LONLAT)
     circles = []
     for fid, geom, props in zip(layer.ids, layer.geometries, layer.properties):
-        radius = radius_m if radius_field is None else _radius(props.get(radius_field), layer, fid, radius_field)
+        radius = radius_m if radius_field is None else (
+            _radius(props.get(radius_field), layer, fid, radius_field, radius_unit) * per_unit)
         _check_hemisphere(radius, layer, fid, radius_field)
         pts = shapely.get_coordinates(transform_geometry(geom, to_lonlat, f"{layer.path}: feature {fid}"))
         parts = [geodesic_circle(lon, lat, radius, vertices) for lon, lat in pts]
@@ -152,7 +158,11 @@ def zones_from_points(
         geometry_types=layer.geometry_types,
         empty=layer.empty,
         skipped=layer.skipped,
+        reach_circles=len(circles),
     )
+
+
+_UNIT_WORDS = {"m": "metres", "km": "kilometres", "mi": "miles"}
 
 
 def _check_hemisphere(radius: float, layer: Layer, fid: str, field: str | None) -> None:
@@ -167,7 +177,7 @@ def _check_hemisphere(radius: float, layer: Layer, fid: str, field: str | None) 
                      f"a hemisphere's (at most {limit:,.0f} m is supported)", param="radius_field")
 
 
-def _radius(value, layer: Layer, fid: str, field: str) -> float:
+def _radius(value, layer: Layer, fid: str, field: str, unit: str = "m") -> float:
     try:
         radius = float(value)
     except (TypeError, ValueError):
@@ -175,7 +185,7 @@ def _radius(value, layer: Layer, fid: str, field: str) -> float:
     if value is None or not math.isfinite(radius) or radius <= 0:
         raise LayerError(
             f"{layer.source}: feature {fid} has radius {value!r} in {{param}} {field!r}; "
-            "radii must be positive numbers of metres", param="radius_field"
+            f"radii must be positive numbers (of {_UNIT_WORDS.get(unit, unit)})", param="radius_field"
         )
     return radius
 
@@ -192,11 +202,12 @@ def read_zones(
     vertex_cap: int = MAX_CIRCLE_VERTICES,
     encoding: str | None = None,
     allow_duplicate_ids: bool = False,
+    radius_unit: str = "m",
 ) -> Layer:
     """Read a zone layer: polygons as they are, points as geodesic circles.
 
-    Points need `radius_m` (metres, for all) or `radius_field` (metres, per
-    feature); on a polygon layer a radius is ignored with a warning.  A layer
+    Points need `radius_m` (metres, for all) or `radius_field` (per feature, in
+    `radius_unit`: m, km or mi, default metres); on a polygon layer a radius is ignored with a warning.  A layer
     that mixes points and polygons is classified feature by feature: its
     points become circles and its polygons stay as they are, in one layer in
     the file's CRS (the circles, built in lon/lat, are moved into it vertex by
@@ -207,7 +218,7 @@ def read_zones(
                        encoding=encoding, allow_duplicate_ids=allow_duplicate_ids)
     if zones.kind == "point":
         circles = zones_from_points(zones, radius_m=radius_m, radius_field=radius_field, vertices=vertices,
-                                    vertex_cap=vertex_cap)
+                                    vertex_cap=vertex_cap, radius_unit=radius_unit)
         return replace(circles, indices=zones.indices)
     if zones.kind == "polygon":
         if radius_m is not None or radius_field is not None:
@@ -219,7 +230,7 @@ def read_zones(
                      properties=tuple(zones.properties[n] for n in where),
                      indices=tuple(zones.indices[n] for n in where), kind="point")
     circles = zones_from_points(points, radius_m=radius_m, radius_field=radius_field, vertices=vertices,
-                                vertex_cap=vertex_cap)
+                                vertex_cap=vertex_cap, radius_unit=radius_unit)
     same = zones.crs.equals(LONLAT, ignore_axis_order=True)
     to_layer = None if same else transformer(LONLAT, zones.crs)
     geometries = zones.geometries.copy()
@@ -228,4 +239,4 @@ def read_zones(
     warnings.warn(AreamcWarning(
         f"{zones.source}: mixed layer: {len(where)} point feature(s) become geodesic circles and "
         f"{len(zones) - len(where)} polygon feature(s) are used as they are"), stacklevel=2)
-    return replace(zones, geometries=geometries, kind="polygon")
+    return replace(zones, geometries=geometries, kind="polygon", reach_circles=len(where))

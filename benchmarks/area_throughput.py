@@ -54,7 +54,7 @@ def run(quick: bool = False, sampler: str | None = None, workers: int | None = W
     load_ex, (geoms, _) = timed(lambda: baselines.load_plane(PATH, "districts", plane))
     job_ex, exact = best_of(lambda: baselines.polygon_area(geoms), repeats)
     total = sum(r.estimate for r in report.rows)
-    half = 1.959964 * math.sqrt(sum(r.stderr ** 2 for r in report.rows))
+    half = 1.959964 * math.sqrt(sum(r.std_error ** 2 for r in report.rows))
     truth = float(np.sum(exact))
     rate = points * len(projected) / job_mc
     worst = max(abs(r.exact_planar / r.geodesic - 1) for r in checked.rows)

@@ -30,7 +30,7 @@ __all__ = [
     "polygon_area",
     "contains_points",
     "zone_counts",
-    "covered_population",
+    "population_covered",
     "covered_population_loop",
     "covered_population_dissolved",
     "covered_population_by",
@@ -178,7 +178,7 @@ def _clip_to(geoms: np.ndarray, region) -> np.ndarray:
     return out
 
 
-def covered_population(blocks, counts, zones, region=None) -> float:
+def population_covered(blocks, counts, zones, region=None) -> float:
     """Population covered by at least one zone, by areal weighting (Goodchild & Lam 1980, Geo-Processing 1:297-312).
 
     Σ count_i x |block_i ∩ region ∩ ∪ zones| / |block_i|, blocks and zones
@@ -213,7 +213,7 @@ def covered_population(blocks, counts, zones, region=None) -> float:
 
 
 def _covered_block_area(blocks: np.ndarray, zones: np.ndarray) -> np.ndarray:
-    """|block ∩ ∪ zones| (m²) for every block, by the local method of :func:`covered_population`."""
+    """|block ∩ ∪ zones| (m²) for every block, by the local method of :func:`population_covered`."""
     n = len(blocks)
     covered = np.zeros(n)
     if not n or not len(zones):
@@ -271,7 +271,7 @@ def covered_population_dissolved(blocks, counts, zones) -> float:
 def covered_population_by(blocks, counts, zones, owner, districts) -> np.ndarray:
     """Covered population of each district, every block lying in one district (`owner`, an index into `districts`).
 
-    Per district, :func:`covered_population` (areal weighting) of its blocks
+    Per district, :func:`population_covered` (areal weighting) of its blocks
     against only the zones meeting the district (one query of a shared
     ``STRtree`` of all the zones):
     Σ_{i in d} count_i x |block_i ∩ ∪ zones| / |block_i| (persons; plane metres).
@@ -296,7 +296,7 @@ def covered_population_by(blocks, counts, zones, owner, districts) -> np.ndarray
     for d in np.flatnonzero(np.diff(cuts)):
         mine = order[cuts[d]:cuts[d + 1]]
         near = zones[tree.query(districts[d], predicate="intersects")]
-        out[d] = covered_population(blocks[mine], counts[mine], near) if len(near) else 0.0
+        out[d] = population_covered(blocks[mine], counts[mine], near) if len(near) else 0.0
     return out
 
 

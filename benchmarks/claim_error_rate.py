@@ -43,7 +43,7 @@ def first_answer(draws: np.ndarray, claim: float) -> tuple[str, str, int]:
                 used = n
         if naive == UNDECIDED:
             low, high = wilson_interval(h, n, CONFIDENCE)
-            naive = MEETS if low > claim else ("falls short" if high < claim else UNDECIDED)
+            naive = MEETS if low > claim else ("falls-short" if high < claim else UNDECIDED)
         if seq != UNDECIDED and naive != UNDECIDED:
             break
     return seq, naive, used

@@ -36,7 +36,7 @@ sample of blocks and printed, to show why):
   alternatives measured): per district, the union of only the zones a
   shared STRtree finds meeting it, intersected with the district; for the
   population, per district, its blocks against those zones by the areal
-  weighting of ``baselines.covered_population`` (an STRtree query for the
+  weighting of ``baselines.population_covered`` (an STRtree query for the
   (block, zone) pairs, blocks inside a zone counted whole, one vectorised
   intersection, local unions per block).  If a timed sample of districts
   says the whole overlay would take more than ``EXACT_LIMIT_S``, it is run
@@ -660,7 +660,7 @@ def run(quick: bool = False, sampler: str | None = None, workers: int | None = W
         np.savez_compressed(dump, district=sample, share=share[sample], share_low=s_low[sample],
                             share_high=s_high[sample], exact_share=e_share, population_share=p_share[sample],
                             population_low=p_low[sample], population_high=p_high[sample],
-                            exact_population_share=e_pshare, population=p_total[sample], exact_population=e_persons,
+                            population_exact_share=e_pshare, population=p_total[sample], exact_population=e_persons,
                             covered=p_covered[sample], exact_covered=e_covered, area_points=area_points[sample],
                             population_points=pop_points[sample],
                             population_method=np.array([pop[j].method if pop[j] else "" for j in sample]))

@@ -12,7 +12,7 @@ starts from that file:
   plane), then ``estimate_coverage(..., density=BlockDensity(...))`` by
   importance sampling, stopped at a 0.5% relative half-width of the covered
   share (so of the covered population), index building included;
-* **fair exact overlay** (``baselines.covered_population``): fiona and one
+* **fair exact overlay** (``baselines.population_covered``): fiona and one
   pyproj call per layer onto a Lambert azimuthal equal-area plane, then
   areal weighting (Goodchild & Lam 1980) with an STRtree query per block
   pair, a shortcut for blocks inside one zone, one vectorised intersection,
@@ -24,7 +24,7 @@ of 3 (loading once each).  The naive overlay (``union_all`` of all zones,
 then every block intersected with the whole union) took 44-69 s on this
 scene (issue 9), over the time budget of a benchmark; it is no longer run.
 ``--alternatives`` times the other exact methods tried for the baseline
-(see ``baselines.covered_population``).  ``--quick``: 3,600 cells, 300 zones.
+(see ``baselines.population_covered``).  ``--quick``: 3,600 cells, 300 zones.
 """
 
 from __future__ import annotations
@@ -114,7 +114,7 @@ def run(quick: bool = False, sampler: str | None = None, workers: int | None = W
         path = write(Path(tmp), region, cells, counts, zones)
         sides = side_by_side(lambda: areamc_load(path), lambda loaded: areamc_job(*loaded, kwargs),
                              lambda: baseline_load(path),
-                             lambda loaded: baselines.covered_population(loaded[2], loaded[3], loaded[1], loaded[0]),
+                             lambda loaded: baselines.population_covered(loaded[2], loaded[3], loaded[1], loaded[0]),
                              repeats)
     people, exact = sides.areamc, sides.baseline
     low, high = people.ci_low * people.total, people.ci_high * people.total
@@ -134,7 +134,7 @@ def alternatives(quick: bool = False) -> None:
     """Time the exact methods tried for the baseline on the in-memory scene (best of 3 each)."""
     _, cells, counts, zones = scene(quick)
     print(f"{len(cells):,} blocks, {len(zones):,} zones; best of 3, one core")
-    for name, fn in (("local unions, vectorised (the baseline)", baselines.covered_population),
+    for name, fn in (("local unions, vectorised (the baseline)", baselines.population_covered),
                      ("local unions, loop over blocks", baselines.covered_population_loop),
                      ("dissolve, then STRtree of the union's parts", baselines.covered_population_dissolved)):
         seconds, value = best_of(lambda fn=fn: fn(cells, counts, zones))

@@ -2,7 +2,10 @@
 """Rebuild the invented "Vale County" demo data set in sample_data/.
 
 Vale County is a fictional county. Every name, shape and number here is
-made up. The script is deterministic (one numpy Generator with a fixed seed)
+made up: the district, town, zone, operator, clinic and reserve names are
+coined words that name no real place, and the county's placement on the
+globe is arbitrary (chosen only so that it sits well inside one UTM zone).
+The script is deterministic (one numpy Generator with a fixed seed)
 and rebuilds every output file from scratch:
 
     vale_county.gpkg            districts, service_zones, clinics, blocks (EPSG:4326)
@@ -87,9 +90,9 @@ def km(dx: float, dy: float) -> tuple[float, float]:
 
 # (name, dx km, dy km, peak density per km^2, sigma km)
 TOWNS = (
-    ("Millbrook", -1.5, -0.5, 2400.0, 2.2),
-    ("Ashford", -19.0, 9.5, 1300.0, 1.6),
-    ("Fenwick Cross", 16.5, 10.5, 750.0, 1.3),
+    ("Vossimble", -1.5, -0.5, 2400.0, 2.2),
+    ("Quorvindle", -19.0, 9.5, 1300.0, 1.6),
+    ("Splendock Cross", 16.5, 10.5, 750.0, 1.3),
 )
 # small villages: (dx km, dy km, peak, sigma km)
 VILLAGES = (
@@ -103,7 +106,7 @@ VILLAGES = (
     (2.0, -18.5, 130.0, 0.7),
 )
 RURAL_DENSITY = 22.0
-# Greywood Forest: ellipse (dx, dy, semi-axis a, semi-axis b [km], rotation deg).
+# Thrumblewood Forest: ellipse (dx, dy, semi-axis a, semi-axis b [km], rotation deg).
 # Density is exactly zero inside the ellipse and tapers back in by 1.35 x.
 FOREST = (-20.0, -3.0, 6.5, 3.6, 25.0)
 
@@ -118,7 +121,7 @@ def _utm_offsets_km(lon, lat):
 
 
 def forest_radius(dx, dy):
-    """Normalised elliptical radius of Greywood Forest (< 1 means inside)."""
+    """Normalised elliptical radius of Thrumblewood Forest (< 1 means inside)."""
     fx, fy, a, b, rot = FOREST
     t = math.radians(rot)
     u = (dx - fx) * math.cos(t) + (dy - fy) * math.sin(t)
@@ -130,7 +133,7 @@ def population_density(lon, lat):
     """Invented smooth population density (people per km^2) at lon/lat.
 
     Rural background with a gentle wave, three towns and a handful of villages
-    as Gaussian bumps, and zero inside Greywood Forest. Vectorised: lon and
+    as Gaussian bumps, and zero inside Thrumblewood Forest. Vectorised: lon and
     lat may be scalars or arrays of the same shape.
     """
     dx, dy = _utm_offsets_km(lon, lat)
@@ -243,19 +246,19 @@ def single(geom):
 
 DISTRICTS = (
     # id, name, seed dx km, seed dy km
-    ("D01", "Ashford Reach", -20.0, 9.0),
-    ("D02", "Kestrel Heath", -4.0, 13.0),
-    ("D03", "Saltry Hills", 15.0, 12.0),
-    ("D04", "Millbrook", -1.0, -1.5),
-    ("D05", "Harrow Fen", 14.0, -3.0),
-    ("D06", "Brackenmoor", -19.0, -8.0),
-    ("D07", "Duncombe Wold", 0.0, -15.0),
-    ("D08", "Lowater Marches", 22.0, -14.0),
+    ("D01", "Quorvindle Reach", -20.0, 9.0),
+    ("D02", "Tansquillow Heath", -4.0, 13.0),
+    ("D03", "Brumbletoe Hills", 15.0, 12.0),
+    ("D04", "Vossimble", -1.0, -1.5),
+    ("D05", "Plodwhistle Fen", 14.0, -3.0),
+    ("D06", "Mossquibble", -19.0, -8.0),
+    ("D07", "Droskelby Wold", 0.0, -15.0),
+    ("D08", "Wendlequist Marches", 22.0, -14.0),
 )
 CONCAVE_DISTRICT = "D02"  # loses a hooked tongue of land to ...
-TONGUE_OWNER = "D04"  # ... Millbrook
-LAKE_DISTRICT = "D05"  # Vale Mere lies inside Harrow Fen (a hole in it)
-ISLAND_DISTRICT = "D08"  # Heron Isle in the lake belongs to Lowater Marches
+TONGUE_OWNER = "D04"  # ... Vossimble
+LAKE_DISTRICT = "D05"  # Quonkle Mere lies inside Plodwhistle Fen (a hole in it)
+ISLAND_DISTRICT = "D08"  # Pibblenook Isle in the lake belongs to Wendlequist Marches
 
 
 def build_county(rng):
@@ -294,8 +297,8 @@ def build_districts(rng, outline, lake, island):
     edges = shapely.get_parts(shapely.voronoi_polygons(MultiPoint(seeds), extend_to=frame, only_edges=True))
     edges = [wiggle_edge(e, rng) for e in edges]  # each Voronoi edge is one straight segment
 
-    # hooked tongue of land reaching from Millbrook north into Kestrel Heath,
-    # which makes Kestrel Heath strongly concave
+    # hooked tongue of land reaching from Vossimble north into Tansquillow Heath,
+    # which makes Tansquillow Heath strongly concave
     ids = [d[0] for d in DISTRICTS]
     sb = seeds[ids.index(CONCAVE_DISTRICT)]
     sa = seeds[ids.index(TONGUE_OWNER)]
@@ -311,7 +314,7 @@ def build_districts(rng, outline, lake, island):
         ]
     )
     tongue = hook.buffer(2600.0, quad_segs=6)
-    # keep the tongue well away from Kestrel Heath's other borders so that
+    # keep the tongue well away from Tansquillow Heath's other borders so that
     # the district stays in one piece
     b_cell, a_cell = cell_of[ids.index(CONCAVE_DISTRICT)], cell_of[ids.index(TONGUE_OWNER)]
     allowed = b_cell.buffer(-1500.0).union(a_cell.buffer(2500.0)).intersection(a_cell.union(b_cell))
@@ -445,39 +448,39 @@ def build_service_zones(rng, outline, lake):
     # leaving the county in the west
     road = LineString([km(-36, 14), km(-24, 12), km(-14, 16), km(-3, 14), km(6, 17), km(14, 15)])
     z.append(("Northern Library Loop", "Vale Mobile Libraries", road.buffer(2200.0, quad_segs=8)))
-    # Z02 a town circle around Millbrook, Z03 nested entirely inside it
+    # Z02 a town circle around Vossimble, Z03 nested entirely inside it
     mx, my = km(TOWNS[0][1], TOWNS[0][2])
     z02 = Point(mx, my).buffer(6500.0, quad_segs=16)
-    z.append(("Millbrook Town Outreach", "Vale County Council", z02))
+    z.append(("Vossimble Town Outreach", "Vale County Council", z02))
     old_town = MultiPoint([km(TOWNS[0][1] + dx, TOWNS[0][2] + dy) for dx, dy in rng.normal(0.0, 1.3, size=(9, 2))])
     z03 = old_town.convex_hull.buffer(400.0, quad_segs=4)
-    z.append(("Millbrook Old Town Walk", "Vale County Council", z03))
+    z.append(("Vossimble Old Town Walk", "Vale County Council", z03))
     # Z04 convex hull of scattered hamlets in the south-west, crossing the border
     pts = MultiPoint([km(dx, dy) for dx, dy in zip(rng.uniform(-33, -14, 14), rng.uniform(-22, -9, 14))])
-    z.append(("Brackenmoor Hamlets Round", "Fen and Downs Outreach Trust", pts.convex_hull))
-    # Z05 a ring road circuit around Ashford: a polygon with a hole
+    z.append(("Mossquibble Hamlets Round", "Fen and Downs Outreach Trust", pts.convex_hull))
+    # Z05 a ring road circuit around Quorvindle: a polygon with a hole
     ax, ay = km(TOWNS[1][1], TOWNS[1][2])
     ring = LinearRing(wobbly_ring(ax, ay, 3800.0, 3000.0, 10.0, rng, n=40, amp=0.05, jitter=0.0))
-    z.append(("Ashford Ring Circuit", "Vale Mobile Libraries", ring.buffer(1100.0, quad_segs=6)))
+    z.append(("Quorvindle Ring Circuit", "Vale Mobile Libraries", ring.buffer(1100.0, quad_segs=6)))
     # Z06 an irregular blob over the eastern valleys
-    z.append(("Eastern Valleys Visits", "Kestrel Community Co-op", wobbly_polygon(*km(18, 2), 9000.0, 6000.0, 30.0, rng, n=60, amp=0.18, jitter=0.03)))
+    z.append(("Eastern Valleys Visits", "Tansquillow Community Co-op", wobbly_polygon(*km(18, 2), 9000.0, 6000.0, 30.0, rng, n=60, amp=0.18, jitter=0.03)))
     # Z07 a meandering river corridor crossing the whole county west to east
     xs = np.linspace(-38, 38, 60)
     ys = -7.0 + 3.0 * np.sin(xs / 6.0) + 1.2 * np.sin(xs / 2.3 + 1.0)
     river = LineString([km(x, y) for x, y in zip(xs, ys)])
-    z.append(("Otter Brook Corridor", "Fen and Downs Outreach Trust", river.buffer(1300.0, quad_segs=6)))
-    # Z08 a lakeside route: covers Vale Mere (water, outside every district)
-    z.append(("Vale Mere Shoreline", "Kestrel Community Co-op", lake.buffer(1800.0, quad_segs=8)))
+    z.append(("Snibbet Brook Corridor", "Fen and Downs Outreach Trust", river.buffer(1300.0, quad_segs=6)))
+    # Z08 a lakeside route: covers Quonkle Mere (water, outside every district)
+    z.append(("Quonkle Mere Shoreline", "Tansquillow Community Co-op", lake.buffer(1800.0, quad_segs=8)))
     # Z09 convex hull of farms in the south hills
     pts = MultiPoint([km(dx, dy) for dx, dy in zip(rng.uniform(-6, 12, 12), rng.uniform(-21, -12, 12))])
-    z.append(("Duncombe Farms Round", "Vale County Council", pts.convex_hull))
+    z.append(("Droskelby Farms Round", "Vale County Council", pts.convex_hull))
     # Z10 a cross-border partnership zone, mostly outside the county to the east
-    z.append(("Eastern Border Partnership", "Marchwick Joint Services", wobbly_polygon(*km(32, -4), 7000.0, 10000.0, -15.0, rng, n=48, amp=0.12, jitter=0.02)))
-    # Z11 a patrol strip along the edge of Greywood Forest
+    z.append(("Eastern Border Partnership", "Quarnivel Joint Services", wobbly_polygon(*km(32, -4), 7000.0, 10000.0, -15.0, rng, n=48, amp=0.12, jitter=0.02)))
+    # Z11 a patrol strip along the edge of Thrumblewood Forest
     fx, fy, fa, fb, frot = FOREST
     edge = LinearRing(wobbly_ring(*km(fx, fy), fa * 1150.0, fb * 1150.0, frot, rng, n=50, amp=0.03, jitter=0.0))
     arc = LineString(list(edge.coords)[5:38])
-    z.append(("Greywood Edge Patrol", "Kestrel Community Co-op", arc.buffer(900.0, quad_segs=6)))
+    z.append(("Thrumblewood Edge Patrol", "Tansquillow Community Co-op", arc.buffer(900.0, quad_segs=6)))
     # Z12 hamlet hopper: a chain of stops, buffered and joined
     stops = [km(6, 4), km(9, -1), km(9, -12), km(2, -18.5)]
     hop = shapely.unary_union([LineString(stops).buffer(700.0)] + [Point(s).buffer(2200.0) for s in stops])
@@ -494,7 +497,7 @@ def build_service_zones(rng, outline, lake):
 
 
 N_CLINICS = 10
-TOWN_CLINIC_NAMES = ("Millbrook Health Centre", "Ashford Surgery", "Fenwick Cross Clinic")
+TOWN_CLINIC_NAMES = ("Vossimble Health Centre", "Quorvindle Surgery", "Splendock Cross Clinic")
 RURAL_CLINIC_KINDS = ("Health Post", "Medical Rooms", "Cottage Clinic", "Family Practice", "Surgery", "Clinic", "Care Point")
 
 
@@ -528,11 +531,11 @@ def build_reserves(rng, county, lake):
     inner = county.buffer(-400.0)
     fx, fy, fa, fb, frot = FOREST
     specs = [
-        ("R01", "Greywood Forest Reserve", km(fx, fy), fa * 850.0, fb * 850.0, frot, True),
-        ("R02", "Harrow Fen Marshes", km(19.0, -3.0), 2400.0, 1600.0, 60.0, False),
-        ("R03", "Kestrel Heath Commons", km(-12.0, 16.0), 2600.0, 1700.0, -10.0, False),
-        ("R04", "Saltry Hills Meadows", km(21.0, 11.0), 2000.0, 1500.0, 40.0, False),
-        ("R05", "Duncombe Chalk Downs", km(-4.5, -16.5), 2800.0, 1300.0, 15.0, False),
+        ("R01", "Thrumblewood Forest Reserve", km(fx, fy), fa * 850.0, fb * 850.0, frot, True),
+        ("R02", "Plodwhistle Fen Marshes", km(19.0, -3.0), 2400.0, 1600.0, 60.0, False),
+        ("R03", "Tansquillow Heath Commons", km(-12.0, 16.0), 2600.0, 1700.0, -10.0, False),
+        ("R04", "Brumbletoe Hills Meadows", km(21.0, 11.0), 2000.0, 1500.0, 40.0, False),
+        ("R05", "Droskelby Chalk Downs", km(-4.5, -16.5), 2800.0, 1300.0, 15.0, False),
     ]
     out = []
     for rid, name, (x, y), a, b, rot, holed in specs:
@@ -766,7 +769,7 @@ def verify():
         geoms[i].intersection(geoms[j]).area for i in range(8) for j in range(i + 1, 8)
     )
     assert overlap < 1e-12 and abs(union.area - area_sum) < 1e-12 * 8
-    # county = mainland with one hole (Vale Mere) + the island inside that hole
+    # county = mainland with one hole (Quonkle Mere) + the island inside that hole
     county_parts = sorted(polygon_parts(union), key=lambda g: -g.area)
     assert len(county_parts) == 2 and len(county_parts[0].interiors) == 1, "county must have one hole"
     assert Polygon(county_parts[0].interiors[0]).contains(county_parts[1])

@@ -128,10 +128,16 @@ def run_cli(capsys, argv) -> tuple[int, str, str]:
 
 
 def run_json(capsys, argv, expect: int = 0) -> dict:
-    """Run ``areamc ARGV --format json -q`` and parse stdout; the exit status must be `expect`."""
+    """Run ``areamc ARGV --format json`` and parse stdout; the exit status must be `expect`.
+
+    Areas come in m², the plane's own unit that shapely's reference values are in, unless `argv`
+    names ``--units`` (the commands' default is km2).
+    """
     import json
 
-    rc, out, err = run_cli(capsys, [*argv, "--format", "json", "-q"])
+    argv = [str(a) for a in argv]
+    units = [] if "--units" in argv else ["--units", "m2"]
+    rc, out, err = run_cli(capsys, [*argv, "--format", "json", *units])
     assert rc == expect, err
     return json.loads(out)
 
@@ -143,7 +149,7 @@ def to_plane(geoms, src_crs, doc, step=None) -> list:
 
     if step is None:
         step = STEP_DEG if src_crs.is_geographic else 1000.0
-    plane = pyproj.CRS.from_wkt(doc["equal_area_crs"]["wkt"])
+    plane = pyproj.CRS.from_wkt(doc["plane"]["wkt"])
     trans = pyproj.Transformer.from_crs(src_crs, plane, always_xy=True)
 
     def move(xy):

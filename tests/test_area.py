@@ -44,13 +44,13 @@ def test_estimate_areas__within_interval_of_exact(small_features, reference_geod
         # The 95% interval holds the exact area for this fixed seed, and the deviation is within
         # 4 standard errors (tolerance tied to the reported standard error, common practice).
         assert row.ci_low <= exact <= row.ci_high, row
-        assert abs(row.estimate - exact) <= 4 * row.stderr
+        assert abs(row.estimate - exact) <= 4 * row.std_error
         assert math.isfinite(row.z) and not row.flagged
         # z: the mid-p binomial score of the hit count at p0 = exact / box (Lancaster 1961).
         assert row.z == pytest.approx(mid_p_z(row.hits, row.points, exact / row.box_area), rel=1e-9, abs=1e-12)
         # it has the sign of the deviation and, in the normal range, is close to it in standard errors
         assert np.sign(row.z) == np.sign(row.estimate - exact)
-        assert row.z == pytest.approx((row.estimate - exact) / row.stderr, abs=0.05)
+        assert row.z == pytest.approx((row.estimate - exact) / row.std_error, abs=0.05)
         # Bookkeeping: box = the feature's bounding box in the plane; estimate = box * h / n.
         minx, miny, maxx, maxy = small_features.planar[small_features.ids.index(row.id)].bounds
         assert row.box_area == pytest.approx((maxx - minx) * (maxy - miny), rel=1e-12)
@@ -159,7 +159,7 @@ def test_estimate_areas__tolerance__two_stage_meets_target(small_features, stop)
         assert half_width <= 1.3 * target
         # within 4 standard errors of shapely's area (six 95% intervals would all hold it only 74% of
         # the time; 4 standard errors is the tool's own flag band, common practice)
-        assert abs(row.estimate - row.exact_planar) <= 4 * row.stderr and not row.flagged
+        assert abs(row.estimate - row.exact_planar) <= 4 * row.std_error and not row.flagged
         # replay the pilot: the first pilot_points points of the feature's stream, same seed
         i = report.rows.index(row)
         pilot = estimate_areas(small_features, stop=StopRule(points=row.pilot_points), seed=11).rows[i]
@@ -217,7 +217,7 @@ def test_trace_rows__end_on_each_rows_estimate_even_with_shared_ids(project, sto
         assert [t.hits for t in mine] == [t.sums[0] for t in trace]
         last = mine[-1]
         assert (last.points, last.hits) == (row.points, row.hits)
-        assert (last.estimate, last.stderr) == (row.estimate, row.stderr)
+        assert (last.estimate, last.std_error) == (row.estimate, row.std_error)
         assert (last.ci_low, last.ci_high) == (row.ci_low, row.ci_high)
         for t in mine:
             # hit-or-miss estimate B h / n (common practice) and its Wilson interval, by scipy.stats.binomtest

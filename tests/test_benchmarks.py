@@ -96,10 +96,10 @@ def test_covered_population__equals_full_overlay():
     zones = _disks(40, 2)
     inter = shapely.intersection(shapely.intersection(blocks, region), shapely.union_all(zones))
     want = float(np.sum(counts * shapely.area(inter) / shapely.area(blocks)))
-    assert baselines.covered_population(blocks, counts, zones, region) == pytest.approx(want, rel=1e-12)
+    assert baselines.population_covered(blocks, counts, zones, region) == pytest.approx(want, rel=1e-12)
     clipped = shapely.intersection(blocks, region)
     keep = shapely.area(clipped) > 0
-    for fn in (baselines.covered_population, baselines.covered_population_loop,
+    for fn in (baselines.population_covered, baselines.covered_population_loop,
                baselines.covered_population_dissolved):
         got = fn(clipped[keep], counts[keep], zones)
         assert got == pytest.approx(float(np.sum(counts[keep] * shapely.area(inter[keep]) /

@@ -110,7 +110,7 @@ def test_integrate_total_is_unbiased_and_exact_when_all_blocks_inside(scene):
     big = project_layers([layer_from_geometries([box(-KM, -KM, 13 * KM, 13 * KM)], PLANE, ids=["all"])],
                          crs=PLANE, densify_m=1e9)[0]
     row = integrate_density(big, source, stop=StopRule(points=2_000), seed=1).rows[0]
-    assert (row.method, row.points, row.stderr, row.stop_reason) == (STRATA, 0, 0.0, "none")
+    assert (row.method, row.points, row.std_error, row.stop_reason) == (STRATA, 0, 0.0, "none")
     assert row.estimate == pytest.approx(counts.sum(), rel=1e-12) and row.z == 0.0
 
 

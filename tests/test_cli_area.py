@@ -78,8 +78,8 @@ METRES_PER_DEGREE = 111_320.0
 UNIT_M2 = {"m2": 1.0, "ha": 1.0e4, "km2": 1.0e6, "acre": 4046.8564224, "mi2": 2589988.110336}
 
 #: Fields every JSON/CSV result row must have (from the specification).
-REQUIRED_FIELDS = ("id", "estimate", "stderr", "ci_low", "ci_high", "points", "hits", "exact_planar", "geodesic", "z")
-AREA_FIELDS = ("estimate", "stderr", "ci_low", "ci_high", "exact_planar", "geodesic")
+REQUIRED_FIELDS = ("id", "estimate", "std_error", "ci_low", "ci_high", "points", "hits", "exact_planar", "geodesic", "z")
+AREA_FIELDS = ("estimate", "std_error", "ci_low", "ci_high", "exact_planar", "geodesic")
 
 _script = shutil.which("areamc", path=os.path.dirname(sys.executable)) or shutil.which("areamc")
 AREAMC = [_script] if _script else [sys.executable, "-c", "import sys; from areamc.cli import main; sys.exit(main())"]
@@ -168,7 +168,7 @@ def assert_one_line_error(status, out, err, *needles):
     assert status == 2, (status, err)
     assert out == ""
     assert "Traceback" not in err
-    lines = [line for line in err.strip().splitlines() if not line.startswith("areamc: warning:")]
+    lines = [line for line in err.strip().splitlines() if not line.startswith(("areamc: warning:", "areamc: note:"))]
     assert len(lines) == 1, err  # warnings (a notice naming the layer used, ...) may come first
     assert lines[0].startswith("areamc: error:"), lines[0]
     for needle in needles:
@@ -221,11 +221,11 @@ BAD_AREA_CASES = [
     ("linestring-geojson", ["{lines}"], ["{lines}"]),
     ("no-crs-shapefile", ["{nocrs}"], ["{nocrs}", "--input-crs"]),
     ("unknown-id-field", ["{gpkg}", "--id-field", "no_such_field"], ["{gpkg}", "--id-field 'no_such_field'"]),
-    ("crs-web-mercator", ["{gpkg}", "--crs", "EPSG:3857"], ["--crs EPSG:3857: not equal-area"]),
-    ("crs-utm", ["{gpkg}", "--crs", "EPSG:32632"], ["--crs", "EPSG:32632"]),
-    ("crs-geographic", ["{gpkg}", "--crs", "EPSG:4326"], ["--crs", "EPSG:4326"]),
-    ("crs-unknown-code", ["{gpkg}", "--crs", "EPSG:999999"], ["--crs", "EPSG:999999"]),
-    ("crs-unknown-text", ["{gpkg}", "--crs", "not a crs"], ["--crs", "not a crs"]),
+    ("crs-web-mercator", ["{gpkg}", "--plane-crs", "EPSG:3857"], ["--plane-crs EPSG:3857: not equal-area"]),
+    ("crs-utm", ["{gpkg}", "--plane-crs", "EPSG:32632"], ["--plane-crs", "EPSG:32632"]),
+    ("crs-geographic", ["{gpkg}", "--plane-crs", "EPSG:4326"], ["--plane-crs", "EPSG:4326"]),
+    ("crs-unknown-code", ["{gpkg}", "--plane-crs", "EPSG:999999"], ["--plane-crs", "EPSG:999999"]),
+    ("crs-unknown-text", ["{gpkg}", "--plane-crs", "not a crs"], ["--plane-crs", "not a crs"]),
     ("input-crs-unknown", ["{nocrs}", "--input-crs", "bogus"], ["--input-crs", "bogus"]),
     ("points-zero", ["{gpkg}", "--points", "0"], ["--points"]),
     ("points-negative", ["{gpkg}", "--points", "-5"], ["--points"]),
@@ -282,7 +282,7 @@ def test_output_over_the_input_is_refused(tmp_path, capsys):
     copy = tmp_path / "copy.gpkg"
     shutil.copyfile(GPKG, copy)
     before = fingerprint(tmp_path)
-    status, out, err = run_cli(capsys, map(str, ["area", copy, "-n", "1000", "--output", copy, "--format", "json"]))
+    status, out, err = run_cli(capsys, map(str, ["area", copy, "-n", "1000", "--output", copy, "--format", "json", "--units", "m2"]))
     assert_one_line_error(status, out, err, "--output")
     assert fingerprint(tmp_path) == before
 
@@ -320,12 +320,12 @@ def test_bow_tie_is_repaired_and_empty_geometries_are_skipped(tmp_path, capsys):
         dst.write({"geometry": None, "properties": {"name": "nothing"}})
         dst.write({"geometry": {"type": "Polygon", "coordinates": []}, "properties": {"name": "hollow"}})
     status, out, err = run_cli(capsys, map(str, ["area", path, "--id-field", "name", "-n", "40000", "--seed", "12",
-                                                 "--confidence", "0.999", "--format", "json"]))
+                                                 "--confidence", "0.999", "--format", "json", "--units", "m2"]))
     assert status == 0, err
     rows = {row["id"]: row for row in json.loads(out)["results"]}
     assert list(rows) == ["square", "bowtie"]  # the two empty features are skipped
     warning_lines = err.strip().splitlines()
-    assert all(line.startswith("areamc: warning:") for line in warning_lines), err
+    assert all(line.startswith(("areamc: warning:", "areamc: note:")) for line in warning_lines), err
     repaired = [line for line in warning_lines if "make_valid" in line]
     assert len(repaired) == 1 and "1 invalid" in repaired[0] and "bowtie" in repaired[0]
     skipped = [line for line in warning_lines if "empty" in line]
@@ -348,7 +348,7 @@ def check_rows_against_file(doc, path, layer, points):
     crs, ref = reference_features(path, layer)
     rows = doc["results"]
     assert [row["id"] for row in rows] == list(ref)  # one row per feature, in file order
-    plane_wkt = doc["equal_area_crs"]["wkt"]
+    plane_wkt = doc["plane"]["wkt"]
     confidence = doc["confidence"]
     for row in rows:
         assert set(REQUIRED_FIELDS) <= set(row)
@@ -362,7 +362,7 @@ def check_rows_against_file(doc, path, layer, points):
         # Hit-or-miss estimate B h / n and its binomial standard error B sqrt(p(1-p)/n): common practice.
         p = row["hits"] / row["points"]
         assert rel(row["estimate"], row["box_area"] * p) < 1e-12
-        assert rel(row["stderr"], row["box_area"] * math.sqrt(p * (1 - p) / row["points"])) < 1e-12
+        assert rel(row["std_error"], row["box_area"] * math.sqrt(p * (1 - p) / row["points"])) < 1e-12
         # Wilson score interval (Wilson 1927; Newcombe 1998, method 3).
         low, high = wilson(row["hits"], row["points"], confidence)
         assert rel(row["ci_low"], row["box_area"] * low) < 1e-9
@@ -381,7 +381,7 @@ def check_rows_against_file(doc, path, layer, points):
 
 @pytest.mark.parametrize("path, layer", POLYGON_FILES)
 def test_end_to_end_json_on_sample_files(path, layer):
-    args = ["area", path, *(["--layer", layer] if layer else []), "--format", "json",
+    args = ["area", path, *(["--layer", layer] if layer else []), "--format", "json", "--units", "m2",
             "--seed", "20240601", "--confidence", "0.999", "--points", "100000"]
     proc = run_script(*args)
     assert proc.returncode == 0, proc.stderr
@@ -393,14 +393,14 @@ def test_end_to_end_json_on_sample_files(path, layer):
     assert doc["confidence"] == 0.999
     assert doc["seed"] == 20240601
     assert doc["units"] == "m2"
-    plane = pyproj.CRS.from_wkt(doc["equal_area_crs"]["wkt"])
+    plane = pyproj.CRS.from_wkt(doc["plane"]["wkt"])
     assert plane.is_projected
-    assert pyproj.CRS.from_user_input(doc["equal_area_crs"]["crs"]).equals(plane)
+    assert pyproj.CRS.from_user_input(doc["plane"]["crs"]).equals(plane)
     check_rows_against_file(doc, path, layer, 100000)
 
 
 def test_python_dash_m_matches_in_process_run(capsys):
-    args = ["area", UTM, "--format", "csv", "--seed", "2", "-n", "5000"]
+    args = ["area", UTM, "--format", "csv", "--units", "m2", "--seed", "2", "-n", "5000"]
     proc = run_script(*args, module=True)
     assert proc.returncode == 0, proc.stderr
     status, out, err = run_cli(capsys, map(str, args))
@@ -428,7 +428,7 @@ def test_output_and_trace_files_end_to_end(tmp_path):
     with fiona.open(GPKG, layer="districts") as src:
         assert list(final) == [str(f.id) for f in src]
     rows = list(csv.DictReader(io.StringIO(trace.read_text())))
-    assert list(rows[0]) == ["id", "feature_index", "points", "hits", "estimate", "stderr", "ci_low", "ci_high"]
+    assert list(rows[0]) == ["id", "feature_index", "points", "hits", "estimate", "std_error", "ci_low", "ci_high"]
     for fid, row in final.items():
         mine = [r for r in rows if r["id"] == fid]
         assert [int(r["points"]) for r in mine] == list(range(5000, 50001, 5000))
@@ -482,7 +482,7 @@ def test_all_files_untouched_by_a_successful_run(tmp_path, capsys):
 def test_csv_has_the_json_columns_and_values(capsys):
     args = ["area", GPKG, "--layer", "districts", "-n", "20000", "--seed", "8"]
     doc = run_json(capsys, map(str, args))
-    status, out, err = run_cli(capsys, map(str, [*args, "--format", "csv"]))
+    status, out, err = run_cli(capsys, map(str, [*args, "--format", "csv", "--units", "m2"]))
     assert status == 0, err
     reader = csv.DictReader(io.StringIO(out))
     rows = list(reader)
@@ -565,7 +565,7 @@ def test_time_limit_stops_each_estimate_and_is_recorded(capsys):
     for row in doc["results"]:
         assert row["stop_reason"] == "time"
         assert 0 < row["points"] < 100_000_000 and row["points"] % 4096 == 0
-        assert abs(row["estimate"] - row["exact_planar"]) <= 4 * row["stderr"]
+        assert abs(row["estimate"] - row["exact_planar"]) <= 4 * row["std_error"]
 
 
 def test_no_exact_skips_the_checks_but_not_the_estimates(capsys):
@@ -574,7 +574,7 @@ def test_no_exact_skips_the_checks_but_not_the_estimates(capsys):
     bare = run_json(capsys, map(str, [*args, "--no-exact"]))
     for a, b in zip(full["results"], bare["results"]):
         assert b["exact_planar"] is None and b["geodesic"] is None and b["z"] is None
-        for key in ("id", "estimate", "stderr", "ci_low", "ci_high", "points", "hits"):
+        for key in ("id", "estimate", "std_error", "ci_low", "ci_high", "points", "hits"):
             assert b[key] == a[key]
 
 
@@ -586,9 +586,9 @@ def test_id_field_labels_rows(capsys):
 
 
 def test_requested_equal_area_crs_is_used(capsys):
-    doc = run_json(capsys, map(str, ["area", GEOJSON, "--crs", "EPSG:6933", "-n", "5000", "--seed", "6"]))
-    assert doc["equal_area_crs"]["crs"] == "EPSG:6933"
-    assert doc["equal_area_crs"]["chosen_from_extent"] is False
+    doc = run_json(capsys, map(str, ["area", GEOJSON, "--plane-crs", "EPSG:6933", "-n", "5000", "--seed", "6"]))
+    assert doc["plane"]["crs"] == "EPSG:6933"
+    assert doc["plane"]["chosen_from_data"] is False
     crs, ref = reference_features(GEOJSON)
     for row in doc["results"]:
         dense, lonlat = ref[row["id"]]

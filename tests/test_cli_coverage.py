@@ -48,13 +48,13 @@ GPKG = ROOT / "sample_data" / "vale_county.gpkg"
 UTM = ROOT / "sample_data" / "vale_reserves_utm32n.gpkg"
 GEOD = pyproj.Geod(ellps="WGS84")  # WGS84 (NIMA TR8350.2), built here on purpose
 #: Districts over service zones, both from the sample GeoPackage.
-BASE = ["coverage", str(GPKG), str(GPKG), "--layer", "districts", "--id-field", "district_id",
+BASE = ["coverage", str(GPKG), str(GPKG), "--regions-layer", "districts", "--regions-id-field", "district_id",
         "--zones-layer", "service_zones", "--zones-id-field", "zone_id"]
-CLINICS = ["coverage", str(GPKG), str(GPKG), "--layer", "districts", "--id-field", "district_id",
+CLINICS = ["coverage", str(GPKG), str(GPKG), "--regions-layer", "districts", "--regions-id-field", "district_id",
            "--zones-layer", "clinics", "--zones-id-field", "clinic_id"]
 #: Python parameter names of the library that must not reach a command-line user (flags are shown instead).
 PARAMETER_NAMES = r"(?<![-\w])(id_field|radius_m|radius_field|vertices|input_crs)\b"
-REQUIRED = ("id", "k", "share", "stderr", "ci_low", "ci_high", "exact_share")
+REQUIRED = ("id", "k", "share", "std_error", "ci_low", "ci_high", "exact_share")
 
 _script = shutil.which("areamc", path=os.path.dirname(sys.executable)) or shutil.which("areamc")
 
@@ -96,9 +96,9 @@ def check_rows(rows, exact):
         ref = exact[(r["id"], r["k"])]
         assert r["exact_share"] == pytest.approx(ref, rel=1e-6, abs=1e-12), r
         assert r["ci_low"] <= ref <= r["ci_high"], r
-        assert abs(r["share"] - ref) <= 4 * r["stderr"] + 1e-12, r
+        assert abs(r["share"] - ref) <= 4 * r["std_error"] + 1e-12, r
         # z: mid-p binomial score of the covered points among the in-region points (Lancaster 1961)
-        assert r["z"] == pytest.approx(mid_p_z(r["hits"], r["points"], r["exact_share"]), rel=1e-9, abs=1e-12)
+        assert r["z"] == pytest.approx(mid_p_z(r["hits"], r["region_points"], r["exact_share"]), rel=1e-9, abs=1e-12)
         assert not r["flagged"]
 
 
@@ -120,7 +120,7 @@ def two_k_doc():
     buf = io.StringIO()
     with contextlib.redirect_stdout(buf):
         rc = main([*BASE, "--at-least", "1", "--at-least", "2", "-n", "40000", "--seed", "2",
-                   "--confidence", "0.999", "--format", "json", "-q"])
+                   "--confidence", "0.999", "--format", "json", "--units", "m2", "-q"])
     assert rc == 0
     return json.loads(buf.getvalue())
 
@@ -148,7 +148,7 @@ def test_coverage__clinics_with_radius_field(capsys):
 
 def test_coverage__zones_in_another_crs_are_reprojected(capsys):
     """Reserves in UTM 32N metres (EPSG:32632) as zones over lon/lat districts."""
-    doc = run_json(capsys, ["coverage", str(GPKG), str(UTM), "--layer", "districts", "--id-field", "district_id",
+    doc = run_json(capsys, ["coverage", str(GPKG), str(UTM), "--regions-layer", "districts", "--regions-id-field", "district_id",
                             "--zones-id-field", "reserve_id", "-n", "40000", "--seed", "4", "--confidence", "0.999"])
     assert [i["crs"] for i in doc["inputs"]] == ["EPSG:4326", "EPSG:32632"]
     exact = exact_shares(doc, UTM, None, "reserve_id")
@@ -165,11 +165,11 @@ def test_coverage__claim_rows_and_verdicts(capsys, claim):
     exact = exact_shares(doc, GPKG, "service_zones", "zone_id")
     assert doc["claim"] == claim and "Howard" in doc["claim_method"]
     for r in doc["results"]:
-        assert r["claim"] == claim and r["verdict"] in ("meets", "falls short", "undecided")
+        assert r["claim"] == claim and r["verdict"] in ("meets", "falls-short", "undecided")
         # the verdict agrees with the row's own confidence sequence ...
         if r["verdict"] == "meets":
             assert r["ci_low"] >= claim - 1e-9
-        elif r["verdict"] == "falls short":
+        elif r["verdict"] == "falls-short":
             assert r["ci_high"] <= claim + 1e-9
         else:
             assert r["ci_low"] - 1e-9 <= claim <= r["ci_high"] + 1e-9
@@ -178,7 +178,7 @@ def test_coverage__claim_rows_and_verdicts(capsys, claim):
         if truth >= claim + 0.05:
             assert r["verdict"] == "meets", (r, truth)
         elif truth <= claim - 0.05:
-            assert r["verdict"] == "falls short", (r, truth)
+            assert r["verdict"] == "falls-short", (r, truth)
         assert r["ci_low"] <= truth <= r["ci_high"]
 
 
@@ -208,7 +208,7 @@ def test_coverage__fail_on_shortfall_exit_status(capsys, two_k_doc):
 def test_coverage__vector_output_holds_regions_with_results(capsys, tmp_path, two_k_doc, ext):
     out = tmp_path / f"coverage.{ext}"
     rc, stdout, err = run_cli(capsys, [*BASE, "--at-least", "1", "--at-least", "2", "-n", "40000", "--seed", "2",
-                                       "--confidence", "0.999", "-q", "--output", str(out)])
+                                       "--confidence", "0.999", "-q", "--units", "m2", "--output", str(out)])
     assert rc == 0, err
     assert stdout == ""
     did, dgeoms, _ = read(GPKG, "districts", "district_id")
@@ -221,7 +221,7 @@ def test_coverage__vector_output_holds_regions_with_results(capsys, tmp_path, tw
     for f in feats:
         key = (f.properties["id"], f.properties["k"])
         row = expected[key]
-        for field in ("share", "stderr", "ci_low", "ci_high", "exact_share", "points"):
+        for field in ("share", "std_error", "ci_low", "ci_high", "exact_share", "region_points"):
             assert f.properties[field] == pytest.approx(row[field], rel=1e-9), field
         # the region's own geometry, unchanged (GeoJSON keeps 7 decimals: 1 cm)
         got = shape(f.geometry)
@@ -242,7 +242,7 @@ def test_coverage__table_footer_says_no_row_is_flagged(capsys, two_k_doc):
 def test_coverage__output_json_file_equals_stdout(capsys, tmp_path, two_k_doc):
     out = tmp_path / "coverage.json"
     rc, stdout, _ = run_cli(capsys, [*BASE, "--at-least", "1", "--at-least", "2", "-n", "40000", "--seed", "2",
-                                     "--confidence", "0.999", "-q", "--output", str(out)])
+                                     "--confidence", "0.999", "-q", "--units", "m2", "--output", str(out)])
     assert rc == 0 and stdout == ""
     assert json.loads(out.read_text())["results"] == two_k_doc["results"]
 
@@ -316,12 +316,12 @@ def test_coverage__bad_zone_points_one_line_exit_2(capsys, extra, needle):
 @pytest.mark.parametrize(
     "argv, needle",
     [
-        pytest.param(["coverage", str(GPKG), str(GPKG), "--layer", "districts", "--zones-layer", "service_zones",
+        pytest.param(["coverage", str(GPKG), str(GPKG), "--regions-layer", "districts", "--zones-layer", "service_zones",
                       "--zones-id-field", "nope"], "--zones-id-field 'nope' is not a field", id="zones-id-field"),
-        pytest.param(["coverage", str(GPKG), str(GPKG), "--layer", "districts", "--id-field", "nope",
-                      "--zones-layer", "service_zones"], "--id-field 'nope' is not a field", id="regions-id-field"),
-        pytest.param(["coverage", str(GPKG), str(GPKG), "--layer", "districts", "--zones-layer", "service_zones",
-                      "--crs", "EPSG:3857"], "--crs EPSG:3857: not equal-area", id="crs-not-equal-area"),
+        pytest.param(["coverage", str(GPKG), str(GPKG), "--regions-layer", "districts", "--regions-id-field", "nope",
+                      "--zones-layer", "service_zones"], "--regions-id-field 'nope' is not a field", id="regions-id-field"),
+        pytest.param(["coverage", str(GPKG), str(GPKG), "--regions-layer", "districts", "--zones-layer", "service_zones",
+                      "--plane-crs", "EPSG:3857"], "--plane-crs EPSG:3857: not equal-area", id="crs-not-equal-area"),
     ],
 )
 def test_coverage__library_errors_name_the_flags(capsys, argv, needle):
@@ -333,12 +333,12 @@ def test_coverage__library_errors_name_the_flags(capsys, argv, needle):
     assert needle in err
     assert not re.search(PARAMETER_NAMES, err), err
     if "zones-id-field" in needle:
-        assert " --id-field" not in err
+        assert " --regions-id-field" not in err
 
 
 @pytest.mark.parametrize("case", ["missing", "negative"])
 def test_coverage__bad_radius_values_in_a_field(capsys, bad_points, case):
-    rc, out, err = run_cli(capsys, ["coverage", str(GPKG), bad_points[case], "--layer", "districts",
+    rc, out, err = run_cli(capsys, ["coverage", str(GPKG), bad_points[case], "--regions-layer", "districts",
                                     "--zones-id-field", "site", "--radius-field", "reach", "-n", "100"])
     assert rc == 2 and out == ""
     assert err.count("\n") == 1 and "Traceback" not in err
@@ -352,9 +352,9 @@ def test_coverage__zones_without_crs_name_the_zones_flag(capsys, tmp_path):
         dst.write({"geometry": mapping(shapely.box(10.4, 47.1, 10.6, 47.3)), "properties": {"n": "a"}})  # no .prj
     cases = (([], "state it with --zones-input-crs"), (["--zones-input-crs", "bogus"], "--zones-input-crs"))
     for extra, needle in cases:
-        rc, out, err = run_cli(capsys, ["coverage", str(GPKG), str(path), "--layer", "districts", "-n", "100", *extra])
+        rc, out, err = run_cli(capsys, ["coverage", str(GPKG), str(path), "--regions-layer", "districts", "-n", "100", *extra])
         assert rc == 2 and out == "" and err.count("\n") == 1
-        assert needle in err and " --input-crs" not in err, err
+        assert needle in err and " --regions-input-crs" not in err, err
         assert not re.search(PARAMETER_NAMES, err), err
 
 
@@ -365,11 +365,11 @@ def test_coverage__zones_without_crs_name_the_zones_flag(capsys, tmp_path):
 def test_coverage__installed_script_fail_on_shortfall(tmp_path):
     """The installed script: clinics' reach over the districts, a claim of 0.99 no district meets."""
     proc = subprocess.run([_script, *CLINICS, "--radius-field", "reach_m", "--claim", "0.99", "--fail-on-shortfall",
-                           "-n", "20000", "--seed", "7", "-q", "--format", "json"],
+                           "-n", "20000", "--seed", "7", "-q", "--format", "json", "--units", "m2"],
                           capture_output=True, text=True, timeout=120)
     assert proc.returncode == 1, proc.stderr
     doc = json.loads(proc.stdout)
     zones = to_plane(clinic_circles(), pyproj.CRS.from_epsg(4326), doc)
     exact = exact_shares(doc, None, None, None, zones=zones)
     assert max(exact.values()) < 0.9  # no district is nearly covered by clinics
-    assert all(r["verdict"] == "falls short" for r in doc["results"])
+    assert all(r["verdict"] == "falls-short" for r in doc["results"])

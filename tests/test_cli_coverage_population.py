@@ -44,10 +44,10 @@ ROOT = Path(__file__).resolve().parents[1]
 GPKG = ROOT / "sample_data" / "vale_county.gpkg"
 TIF = ROOT / "sample_data" / "vale_population.tif"
 PLANE = "+proj=laea +lat_0=47 +lon_0=10 +datum=WGS84 +units=m +no_defs"
-BASE = ["coverage", str(GPKG), str(GPKG), "--layer", "districts", "--id-field", "district_id",
+BASE = ["coverage", str(GPKG), str(GPKG), "--regions-layer", "districts", "--regions-id-field", "district_id",
         "--zones-layer", "service_zones", "--zones-id-field", "zone_id"]
 BLOCKS = ["--density", str(GPKG), "--density-layer", "blocks", "--count-field", "population"]
-POPULATION_FIELDS = ("population", "covered_population", "population_share", "population_share_ci_low",
+POPULATION_FIELDS = ("population_total", "population_covered", "population_share", "population_share_ci_low",
                      "population_share_ci_high")
 CONF = "0.999"
 
@@ -86,7 +86,7 @@ def raster_cells(doc, pieces=8):
         data = src.read(1, masked=True).astype(float)
         t, rows, cols = src.transform, src.height, src.width
         crs = pyproj.CRS.from_wkt(src.crs.to_wkt())
-    trans = pyproj.Transformer.from_crs(crs, pyproj.CRS.from_wkt(doc["equal_area_crs"]["wkt"]), always_xy=True)
+    trans = pyproj.Transformer.from_crs(crs, pyproj.CRS.from_wkt(doc["plane"]["wkt"]), always_xy=True)
     s = np.arange(pieces) / pieces
     r, c = (a.ravel() for a in np.meshgrid(np.arange(rows), np.arange(cols), indexing="ij"))
     ring_c = np.concatenate([s, np.ones(pieces), 1 - s, np.zeros(pieces)])
@@ -116,7 +116,7 @@ def blocks_doc():
 
     buf = io.StringIO()
     with contextlib.redirect_stdout(buf):
-        rc = main([*BASE, *BLOCKS, "-n", "40000", "--seed", "21", "--confidence", CONF, "--format", "json", "-q"])
+        rc = main([*BASE, *BLOCKS, "-n", "40000", "--seed", "21", "--confidence", CONF, "--format", "json", "--units", "m2", "-q"])
     assert rc == 0
     doc = json.loads(buf.getvalue())
     units, counts = sample_blocks(doc)
@@ -136,11 +136,11 @@ def test_blocks__population_rows_hold_the_areal_weighting_shares(blocks_doc):
         assert set(POPULATION_FIELDS) <= set(r), r
         population, share = truth[r["id"]]
         assert population == pytest.approx(sums[r["id"]], rel=1e-6)
-        assert r["population"] == pytest.approx(population, rel=1e-6)
-        assert r["exact_population_share"] == pytest.approx(share, rel=1e-6)
+        assert r["population_total"] == pytest.approx(population, rel=1e-6)
+        assert r["population_exact_share"] == pytest.approx(share, rel=1e-6)
         assert r["population_share_ci_low"] <= share <= r["population_share_ci_high"], (r, share)
-        assert abs(r["population_share"] - share) <= 4 * r["population_share_stderr"]
-        assert r["covered_population"] == pytest.approx(r["population_share"] * r["population"], rel=1e-12)
+        assert abs(r["population_share"] - share) <= 4 * r["population_share_std_error"]
+        assert r["population_covered"] == pytest.approx(r["population_share"] * r["population_total"], rel=1e-12)
         assert r["population_method"] == "stratified-importance"  # blocks inside a district and its zones counted whole
         assert r["population_verdict"] is None  # no claim
     assert doc["density"]["kind"] == "blocks"
@@ -160,7 +160,7 @@ def test_blocks__plain_sampling_also_holds_the_exact_share(capsys, blocks_doc):
 
 def test_raster__population_share_by_cell_fractions(capsys):
     rc, out, err = run_cli(capsys, [*BASE, "--density", str(TIF), "-n", "40000", "--seed", "23", "--confidence",
-                                    CONF, "--format", "json", "-q"])
+                                    CONF, "--format", "json", "--units", "m2", "-q"])
     assert rc == 0, err
     assert "10 nodata cell(s)" in err
     doc = json.loads(out)
@@ -169,7 +169,7 @@ def test_raster__population_share_by_cell_fractions(capsys):
     for r in doc["results"]:
         population, share = truth[r["id"]]
         assert set(POPULATION_FIELDS) <= set(r), r
-        assert r["population"] == pytest.approx(population, rel=1e-4)  # 4-corner vs densified cells
+        assert r["population_total"] == pytest.approx(population, rel=1e-4)  # 4-corner vs densified cells
         assert r["population_share_ci_low"] <= share <= r["population_share_ci_high"], (r, share)
         assert r["population_method"] == "importance"
 
@@ -178,19 +178,19 @@ def test_raster__population_share_by_cell_fractions(capsys):
 def test_blocks__population_claim_verdicts_follow_the_exact_shares(capsys, blocks_doc, claim):
     _, truth = blocks_doc
     rc, out, err = run_cli(capsys, [*BASE, *BLOCKS, "--claim", str(claim), "--fail-on-shortfall", "-n", "40000",
-                                    "--seed", "24", "--format", "json", "-q"])
+                                    "--seed", "24", "--format", "json", "--units", "m2", "-q"])
     rows = json.loads(out)["results"]
     verdicts = {}
     for r in rows:
         share = truth[r["id"]][1]
         v = r["population_verdict"]
-        assert v in ("meets", "falls short", "undecided")
+        assert v in ("meets", "falls-short", "undecided")
         if share >= claim:
-            assert v != "falls short", (r["id"], share)
+            assert v != "falls-short", (r["id"], share)
         else:
             assert v != "meets", (r["id"], share)
         verdicts[r["id"]] = v
-    assert "meets" in verdicts.values() and "falls short" in verdicts.values()
+    assert "meets" in verdicts.values() and "falls-short" in verdicts.values()
     # some region falls short (here by area and population): exit status 1
     assert rc == 1, err
 
@@ -198,7 +198,7 @@ def test_blocks__population_claim_verdicts_follow_the_exact_shares(capsys, block
 def test_blocks__clinic_reach_as_zones(capsys):
     # zones from points: geodesic circles of each clinic's reach_m, built here with
     # pyproj.Geod.fwd (Karney 2013, J. Geodesy 87:43-55) as 256-gons
-    argv = ["coverage", str(GPKG), str(GPKG), "--layer", "districts", "--id-field", "district_id",
+    argv = ["coverage", str(GPKG), str(GPKG), "--regions-layer", "districts", "--regions-id-field", "district_id",
             "--zones-layer", "clinics", "--zones-id-field", "clinic_id", "--radius-field", "reach_m",
             "--circle-vertices", "256", *BLOCKS, "-n", "40000", "--seed", "26", "--confidence", CONF]
     doc = run_json(capsys, argv)
@@ -216,7 +216,7 @@ def test_blocks__clinic_reach_as_zones(capsys):
     for rid, region in zip(dids, to_plane(dgeoms, dcrs, doc)):
         share = overlay_total(units, counts, shapely.intersection(region, union)) / overlay_total(units, counts, region)
         (row,) = [r for r in doc["results"] if r["id"] == rid]
-        assert row["exact_population_share"] == pytest.approx(share, rel=1e-9)
+        assert row["population_exact_share"] == pytest.approx(share, rel=1e-9)
         assert row["population_share_ci_low"] <= share <= row["population_share_ci_high"]
 
 
@@ -234,7 +234,7 @@ def scene(tmp_path_factory):
     zones = write_layer(tp / "zones.gpkg", [box(0, 0, 6 * km, 10 * km)], [{"zid": "Z"}], {"zid": "str"}, "zones")
     blocks = write_layer(tp / "blocks.gpkg", [box(0, 0, 6 * km, 10 * km), box(6 * km, 0, 10 * km, 10 * km)],
                          [{"pop": 100}, {"pop": 900}], {"pop": "int"}, "blocks")
-    return ["coverage", regions, zones, "--id-field", "rid", "--zones-id-field", "zid", "--crs", PLANE,
+    return ["coverage", regions, zones, "--regions-id-field", "rid", "--zones-id-field", "zid", "--plane-crs", PLANE,
             "--density", blocks, "--count-field", "pop", "-n", "20000", "--seed", "25"]
 
 
@@ -243,13 +243,13 @@ def test_scene__population_shortfall_alone_fails_the_run(capsys, scene):
     (row,) = doc["results"]
     assert row["exact_share"] == pytest.approx(0.6, rel=1e-9)
     assert row["verdict"] == "meets"
-    assert row["population"] == pytest.approx(1000.0, rel=1e-9)
-    assert row["exact_population_share"] == pytest.approx(0.1, rel=1e-9)
+    assert row["population_total"] == pytest.approx(1000.0, rel=1e-9)
+    assert row["population_exact_share"] == pytest.approx(0.1, rel=1e-9)
     assert row["population_share_ci_low"] <= 0.1 <= row["population_share_ci_high"]
-    assert row["population_verdict"] == "falls short"
+    assert row["population_verdict"] == "falls-short"
     # without --fail-on-shortfall the same verdicts exit 0
     doc = run_json(capsys, [*scene, "--claim", "0.5"], expect=0)
-    assert doc["results"][0]["population_verdict"] == "falls short"
+    assert doc["results"][0]["population_verdict"] == "falls-short"
 
 
 def test_scene__both_shares_meet_a_low_claim(capsys, scene):
@@ -266,8 +266,8 @@ def test_scene__end_to_end_subprocess_exit_status(scene):
     assert proc.returncode == 1, proc.stderr
     assert "Traceback" not in proc.stderr
     # the table reports both verdicts and the population tally
-    assert "falls short" in proc.stdout and "meets" in proc.stdout
-    assert "population share >= 0.5: 0 meet, 1 fall short" in proc.stdout
+    assert "falls-short" in proc.stdout and "meets" in proc.stdout
+    assert "claim population share >= 0.5 at k = 1: 0 meet, 1 fall short" in proc.stdout
 
 
 def test_scene__bad_count_field_exits_2(capsys, scene):

@@ -42,7 +42,7 @@ TEXT = st.one_of(
     st.text(max_size=8),
 )
 OPTIONS = ["--points", "--tolerance", "--max-points", "--confidence", "--seed", "--chunk", "--densify",
-           "--units", "--trace-every", "--time-limit", "--point-cap", "--sampler", "--crs"]
+           "--units", "--trace-every", "--time-limit", "--point-cap", "--sampler", "--plane-crs"]
 
 
 def _check(capsys, argv, folder):
@@ -61,7 +61,7 @@ def _check(capsys, argv, folder):
 @FUZZ
 @given(pairs=st.lists(st.tuples(st.sampled_from(OPTIONS), TEXT), min_size=1, max_size=3))
 def test_area_options__any_values__answer_or_one_line_refusal(capsys, layer, pairs):
-    argv = ["area", str(layer / "d.geojson"), "--format", "json", "-q", "--point-cap", "200000"]
+    argv = ["area", str(layer / "d.geojson"), "--format", "json", "--units", "m2", "-q", "--point-cap", "200000"]
     for option, value in pairs:
         argv += [option, value]
     if not any(o in ("--points", "--tolerance") for o, _ in pairs):
@@ -76,5 +76,5 @@ def test_area_options__any_values__answer_or_one_line_refusal(capsys, layer, pai
 ))
 def test_integrate_expression__any_text__answer_or_one_line_refusal(capsys, layer, expression):
     argv = ["integrate", str(layer / "d.geojson"), "--density", expression, "--density-kind", "expression",
-            "--points", "500", "--format", "json", "-q"]
+            "--points", "500", "--format", "json", "--units", "m2", "-q"]
     _check(capsys, argv, layer)

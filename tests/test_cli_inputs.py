@@ -188,18 +188,16 @@ REFUSED = [
      r"--input-encoding: unknown text encoding 'klingon'"),
     ("duplicate ids: area", ["area", "{dup}", "--id-field", "name"],
      r"{dup} \(layer dup\): --id-field 'name' has duplicate values: 'A' \(2 features\); .*--allow-duplicate-ids"),
-    ("duplicate ids: inspect", ["inspect", "{dup}", "--id-field", "name"],
-     r"{dup} \(layer dup\): --id-field 'name' has duplicate values: 'A' \(2 features\)"),
-    ("duplicate ids: overlap ZONES", ["overlap", "{dup}", "--id-field", "name"],
-     r"{dup} \(layer dup\): --id-field 'name' has duplicate values: 'A' \(2 features\)"),
+    ("duplicate ids: overlap ZONES", ["overlap", "{dup}", "--zones-id-field", "name"],
+     r"{dup} \(layer dup\): --zones-id-field 'name' has duplicate values: 'A' \(2 features\)"),
     ("duplicate ids: overlap OTHER", ["overlap", "{zones}", "{dup}", "--other-id-field", "name"],
      r"{dup} \(layer dup\): --other-id-field 'name' has duplicate values: 'A' \(2 features\)"),
-    ("duplicate ids: coverage regions", ["coverage", "{dup}", "{zones}", "--id-field", "name"],
-     r"{dup} \(layer dup\): --id-field 'name' has duplicate values: 'A' \(2 features\)"),
+    ("duplicate ids: coverage regions", ["coverage", "{dup}", "{zones}", "--regions-id-field", "name"],
+     r"{dup} \(layer dup\): --regions-id-field 'name' has duplicate values: 'A' \(2 features\)"),
     ("duplicate ids: coverage zones", ["coverage", "{regions}", "{dup}", "--zones-id-field", "name"],
      r"{dup} \(layer dup\): --zones-id-field 'name' has duplicate values: 'A' \(2 features\)"),
-    ("duplicate ids: integrate", ["integrate", "{dup}", "--id-field", "name", "--density", "1e-4"],
-     r"{dup} \(layer dup\): --id-field 'name' has duplicate values: 'A' \(2 features\)"),
+    ("duplicate ids: integrate", ["integrate", "{dup}", "--regions-id-field", "name", "--density", "1e-4"],
+     r"{dup} \(layer dup\): --regions-id-field 'name' has duplicate values: 'A' \(2 features\)"),
     ("five duplicated values: three named", ["area", "{many}", "--id-field", "name"],
      r"'P' \(2 features\), 'Q' \(2 features\), 'R' \(2 features\) and 2 more;"),
     ("mixed zones without a radius", ["overlap", "{mixed}"], r"{mixed} \(layer mixed\): holds points; give --radius"),
@@ -239,7 +237,7 @@ def test_truncated_shapefile__library_refuses_where_gdal_reads_no_geometry(tmp_p
 def test_null_shapes__stay_empty_features_with_a_warning(capsys, tmp_path):
     """A feature written with no geometry (shape type 0, ESRI 1998 p. 5) is empty, not damage."""
     path = write(tmp_path / "holes.shp", [("A", POLYGONS["A"]), ("gap", None), ("B", POLYGONS["B"])])
-    rc, out, err = run_cli(capsys, ["area", path, "--id-field", "name", *FAST, "--format", "json"])
+    rc, out, err = run_cli(capsys, ["area", path, "--id-field", "name", *FAST, "--format", "json", "--units", "m2"])
     assert rc == 0, err
     assert [r["id"] for r in json.loads(out)["results"]] == ["A", "B"]
     assert "skipped 1 empty geometry: gap" in err
@@ -279,7 +277,7 @@ def test_allow_duplicate_ids__area_rows_and_trace_follow_each_feature(capsys, tw
 def test_allow_duplicate_ids__coverage_features_keep_their_own_geometry(capsys, twins):
     folder, dup, zones, polygons = twins
     out = folder / "cov.geojson"
-    rc, _, err = run_cli(capsys, ["coverage", dup, zones, "--id-field", "name", "--allow-duplicate-ids",
+    rc, _, err = run_cli(capsys, ["coverage", dup, zones, "--regions-id-field", "name", "--allow-duplicate-ids",
                                   *FAST, "-o", str(out)])
     assert rc == 0, err
     assert "'A' (2 features); kept (--allow-duplicate-ids)" in err
@@ -292,7 +290,7 @@ def test_allow_duplicate_ids__coverage_features_keep_their_own_geometry(capsys, 
 
 def test_allow_duplicate_ids__overlap_pairs_carry_both_indices(capsys, twins):
     folder, dup, zones, polygons = twins
-    doc = run_json(capsys, ["overlap", dup, zones, "--id-field", "name", "--allow-duplicate-ids", *FAST])
+    doc = run_json(capsys, ["overlap", dup, zones, "--zones-id-field", "name", "--allow-duplicate-ids", *FAST])
     rows = doc["results"]
     assert [(r["id_a"], r["feature_index_a"], r["feature_index_b"]) for r in rows] == [("A", 0, 0), ("A", 1, 0)]
     zone = box(10.05, 47.0, 10.25, 47.1)
@@ -304,15 +302,16 @@ def test_allow_duplicate_ids__overlap_pairs_carry_both_indices(capsys, twins):
 
 def test_allow_duplicate_ids__integrate_and_table_show_the_index(capsys, twins):
     folder, dup, _, polygons = twins
-    doc = run_json(capsys, ["integrate", dup, "--id-field", "name", "--allow-duplicate-ids", "--density", "1e-4",
+    doc = run_json(capsys, ["integrate", dup, "--regions-id-field", "name", "--allow-duplicate-ids", "--density", "1e-4",
                             *FAST])
     assert [(r["id"], r["feature_index"]) for r in doc["results"]] == [("A", 0), ("A", 1), ("C", 2)]
     for row, poly in zip(doc["results"], polygons):
         assert row["region_area"] == pytest.approx(geod_area(poly), rel=1e-6)  # pyproj.Geod
     rc, out, err = run_cli(capsys, ["area", dup, "--id-field", "name", "--allow-duplicate-ids", *FAST])
     assert rc == 0, err
-    heading = out.splitlines()[4].split()
-    assert heading[:3] == ["id", "index", "estimate"]
+    lines = out.splitlines()
+    heading = lines[next(n for n, line in enumerate(lines) if line and set(line) <= {"-", " "}) - 1].split()
+    assert heading[:3] == ["id", "feature_index", "estimate"]
 
 
 def test_duplicate_ids__library_names_parameters_not_flags(tmp_path):
@@ -368,7 +367,7 @@ def test_mixed_zone_layer__overlap_of_circle_and_polygon(capsys, tmp_path):
     a = box(10.45, 47.15, 10.55, 47.25)
     path = write(tmp_path / "mixed.gpkg", [("P", Point(10.5, 47.2)), ("A", a), ("B", POLYGONS["B"])],
                  geometry="Unknown")
-    doc = run_json(capsys, ["overlap", path, "--radius", "5km", "--id-field", "name", "--no-profile", *FAST])
+    doc = run_json(capsys, ["overlap", path, "--radius", "5km", "--zones-id-field", "name", "--no-profile", *FAST])
     assert [(r["id_a"], r["id_b"]) for r in doc["results"]] == [("P", "A")]
     az = np.linspace(0.0, 360.0, 256, endpoint=False)
     lons, lats, _ = GEOD.fwd(np.full(256, 10.5), np.full(256, 47.2), az, np.full(256, 5000.0))
@@ -381,7 +380,7 @@ def test_mixed_zone_layer__overlap_of_circle_and_polygon(capsys, tmp_path):
 def test_mixed_layer__polygon_job_skips_points_with_a_count(capsys, tmp_path):
     path = write(tmp_path / "mixed.gpkg", [("P", Point(10.5, 47.2)), ("A", POLYGONS["A"]), ("B", POLYGONS["B"])],
                  geometry="Unknown")
-    rc, out, err = run_cli(capsys, ["area", path, "--id-field", "name", *FAST, "--format", "json"])
+    rc, out, err = run_cli(capsys, ["area", path, "--id-field", "name", *FAST, "--format", "json", "--units", "m2"])
     assert rc == 0, err
     assert "skipped 1 feature(s) that are not polygons (1 Point): P" in err
     rows = json.loads(out)["results"]
@@ -405,13 +404,16 @@ def test_several_layers__notice_names_the_layer_used_and_the_others(capsys, tmp_
     path = tmp_path / "two.gpkg"
     write(path, [("F1", POLYGONS["A"])], layer="first")
     write(path, [("S1", POLYGONS["B"]), ("S2", POLYGONS["C"])], layer="second")
-    rc, out, err = run_cli(capsys, ["area", str(path), "--id-field", "name", *FAST, "--format", "json"])
+    quiet = [a for a in FAST if a != "-q"]
+    rc, out, err = run_cli(capsys, ["area", str(path), "--id-field", "name", *quiet, "--format", "json", "--units", "m2"])
     assert rc == 0, err
     notice = [line for line in err.splitlines() if "layers" in line]
-    assert len(notice) == 1 and notice[0].startswith("areamc: warning:")
+    assert len(notice) == 1 and notice[0].startswith("areamc: note:")
     assert "holds 2 layers; using the first, 'first' (the others: 'second'); choose one with --layer" in notice[0]
     assert [r["id"] for r in json.loads(out)["results"]] == ["F1"]
     rc, out, err = run_cli(capsys, ["area", str(path), "--layer", "second", "--id-field", "name", *FAST])
+    assert rc == 0 and err == "", err
+    rc, out, err = run_cli(capsys, ["area", str(path), "--id-field", "name", *FAST])  # --quiet silences the note
     assert rc == 0 and err == "", err
 
 
@@ -430,7 +432,7 @@ def test_double_dash__ends_options_in_every_command(capsys, tmp_path, monkeypatc
     write(tmp_path / "-n.gpkg", [("Z1", box(10.05, 47.0, 10.25, 47.1))], layer="zones")
     write(tmp_path / "regions.gpkg", [("R1", box(10.0, 46.95, 10.3, 47.15))])
     sampling = [] if argv[0] == "inspect" else ["-n", "500", "--seed", "1"]
-    rc, out, err = run_cli(capsys, [argv[0], *sampling, "-q", "--format", "json", *argv[1:]])
+    rc, out, err = run_cli(capsys, [argv[0], *sampling, "-q", "--format", "json", "--units", "m2", *argv[1:]])
     assert rc == 0, err
     doc = json.loads(out)
     inputs = doc.get("inputs") or [doc.get("input") or doc["results"][0]]

@@ -108,19 +108,19 @@ def test_fail_on_shortfall__undecided_verdicts__exit_3_with_output(capsys, folde
 
 def test_fail_on_shortfall__a_shortfall_wins_over_undecided__exit_1(capsys, folder):
     # D1 is 0.5 covered by area (10.2..10.3 of 10.2..10.4): a claim of 0.99 falls short quickly there,
-    # while D0 (0.75 covered) is far from it as well; both decided as "falls short" with enough points.
+    # while D0 (0.75 covered) is far from it as well; both decided as "falls-short" with enough points.
     rc, out, err = run_cli(capsys, ["coverage", str(folder / "districts.geojson"), str(folder / "zones.geojson"),
                                     "--claim", "0.99", "-n", "50000", "--seed", "2", "--fail-on-shortfall",
-                                    "--format", "json", "-q"])
+                                    "--format", "json", "--units", "m2", "-q"])
     assert rc == 1, err
-    assert "falls short" in {row["verdict"] for row in json.loads(out)["results"]}
+    assert "falls-short" in {row["verdict"] for row in json.loads(out)["results"]}
 
 
 @pytest.mark.parametrize("density", ["expression", "uniform blocks"])
 def test_weighted_sums__any_chunk__same_digits(capsys, folder, density):
     """The brief: results for a seed do not depend on --chunk.  Real-valued scores are summed in a fixed
     order (areamc.engine), so the JSON results are identical to the last digit."""
-    base = ["integrate", str(folder / "districts.geojson"), "-n", "30000", "--seed", "5", "--format", "json", "-q"]
+    base = ["integrate", str(folder / "districts.geojson"), "-n", "30000", "--seed", "5", "--format", "json", "--units", "m2", "-q"]
     if density == "expression":
         base += ["--density", "1e-4 * (1 + sin(x / 3000.0) ** 2)"]
     else:
@@ -141,5 +141,5 @@ def test_double_dash__a_file_named_dash_v__is_a_file_not_verbose(capsys, folder,
 
     shutil.copy(folder / "districts.geojson", folder / "-v")
     monkeypatch.chdir(folder)
-    assert_refused(capsys, ["area", "--crs", "EPSG:3857", "-n", "100", "--", "-v"],
-                   r"--crs EPSG:3857: not equal-area", folder)
+    assert_refused(capsys, ["area", "--plane-crs", "EPSG:3857", "-n", "100", "--", "-v"],
+                   r"--plane-crs EPSG:3857: not equal-area", folder)

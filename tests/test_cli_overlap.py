@@ -46,9 +46,9 @@ from conftest import STEP_DEG, assert_refused, run_cli, run_json, to_plane, mid_
 
 ROOT = Path(__file__).resolve().parents[1]
 GPKG = ROOT / "sample_data" / "vale_county.gpkg"
-ZONES = [str(GPKG), "--layer", "service_zones", "--id-field", "zone_id"]
+ZONES = [str(GPKG), "--zones-layer", "service_zones", "--zones-id-field", "zone_id"]
 GEOD = pyproj.Geod(ellps="WGS84")  # WGS84 (NIMA TR8350.2), built here on purpose
-REQUIRED = ("id_a", "id_b", "estimate", "stderr", "ci_low", "ci_high", "share_a", "share_b", "exact_planar", "z")
+REQUIRED = ("id_a", "id_b", "estimate", "std_error", "ci_low", "ci_high", "share_a", "share_b", "exact_planar", "z")
 
 _script = shutil.which("areamc", path=os.path.dirname(sys.executable)) or shutil.which("areamc")
 
@@ -88,7 +88,7 @@ def check_rows(rows, exact, area_a, area_b):
         ref = exact[(r["id_a"], r["id_b"])]
         assert r["exact_planar"] == pytest.approx(ref, rel=1e-7)
         assert r["ci_low"] <= ref <= r["ci_high"], r
-        assert abs(r["estimate"] - ref) <= 4 * r["stderr"], r
+        assert abs(r["estimate"] - ref) <= 4 * r["std_error"], r
         assert r["share_a"] == pytest.approx(r["estimate"] / area_a[r["id_a"]], rel=1e-7)
         assert r["share_b"] == pytest.approx(r["estimate"] / area_b[r["id_b"]], rel=1e-7)
         # z: mid-p binomial score of the hits at p0 = shapely's overlap / the pair's box (Lancaster 1961)
@@ -130,7 +130,7 @@ def one_layer_doc():
 
     buf = io.StringIO()
     with contextlib.redirect_stdout(buf):
-        rc = main(["overlap", *ZONES, "-n", "40000", "--seed", "3", "--confidence", "0.999", "--format", "json", "-q"])
+        rc = main(["overlap", *ZONES, "-n", "40000", "--seed", "3", "--confidence", "0.999", "--format", "json", "--units", "m2", "-q"])
     assert rc == 0
     return json.loads(buf.getvalue())
 
@@ -161,12 +161,12 @@ def test_overlap__one_layer_multiplicity_profile(one_layer_doc, service_zones):
     for k in (1, 2, 3):
         least = at_least(k)
         m = profile[k]
-        assert m["exact_area_at_least"] == pytest.approx(least, rel=1e-6)
+        assert m["area_at_least_exact"] == pytest.approx(least, rel=1e-6)
         assert m["area_at_least_ci_low"] <= least <= m["area_at_least_ci_high"], m
-        assert abs(m["area_at_least"] - least) <= 4 * m["area_at_least_stderr"]
+        assert abs(m["area_at_least"] - least) <= 4 * m["area_at_least_std_error"]
         # exactly k = at least k minus at least k + 1 (common practice)
         more = at_least(k + 1)
-        assert m["exact_area_exactly"] == pytest.approx(least - more, rel=1e-6)
+        assert m["area_exactly_exact"] == pytest.approx(least - more, rel=1e-6)
         assert m["area_exactly_ci_low"] <= least - more <= m["area_exactly_ci_high"], m
         # z of the at-least-k area: mid-p binomial score (Lancaster 1961) of the hits in the box
         hits = round(m["area_at_least"] / box_area * n)
@@ -175,7 +175,7 @@ def test_overlap__one_layer_multiplicity_profile(one_layer_doc, service_zones):
 
 
 def test_overlap__two_layers_cross_pairs(capsys, service_zones):
-    doc = run_json(capsys, ["overlap", str(GPKG), str(GPKG), "--layer", "service_zones", "--id-field", "zone_id",
+    doc = run_json(capsys, ["overlap", str(GPKG), str(GPKG), "--zones-layer", "service_zones", "--zones-id-field", "zone_id",
                             "--other-layer", "districts", "--other-id-field", "district_id", "-n", "20000",
                             "--seed", "4", "--confidence", "0.999"])
     zid, zgeoms, crs = service_zones
@@ -212,7 +212,7 @@ def test_overlap__a_partition_has_no_overlapping_pairs(capsys):
     """The sample districts partition the county: shapely finds no overlap of positive area."""
     did, dgeoms, _ = read(GPKG, "districts", "district_id")
     assert exact_pair_areas(did, dgeoms) == {}
-    rc, out, _ = run_cli(capsys, ["overlap", str(GPKG), "--layer", "districts", "--id-field", "district_id", "-n",
+    rc, out, _ = run_cli(capsys, ["overlap", str(GPKG), "--zones-layer", "districts", "--zones-id-field", "district_id", "-n",
                                   "2000", "--seed", "1", "-q", "--no-profile"])
     assert rc == 0
     assert "no overlapping pairs" in out
@@ -222,7 +222,7 @@ def test_overlap__a_partition_has_no_overlapping_pairs(capsys):
 
 
 def test_overlap__clinics_with_radius_field(capsys):
-    doc = run_json(capsys, ["overlap", str(GPKG), "--layer", "clinics", "--id-field", "clinic_id",
+    doc = run_json(capsys, ["overlap", str(GPKG), "--zones-layer", "clinics", "--zones-id-field", "clinic_id",
                             "--radius-field", "reach_m", "-n", "40000", "--seed", "5", "--confidence", "0.999"])
     with fiona.open(GPKG, layer="clinics") as src:
         clinics = [(f.properties["clinic_id"], shape(f.geometry), f.properties["reach_m"]) for f in src]
@@ -236,7 +236,7 @@ def test_overlap__clinics_with_radius_field(capsys):
 
 
 def test_overlap__clinics_with_one_radius(capsys):
-    doc = run_json(capsys, ["overlap", str(GPKG), "--layer", "clinics", "--id-field", "clinic_id",
+    doc = run_json(capsys, ["overlap", str(GPKG), "--zones-layer", "clinics", "--zones-id-field", "clinic_id",
                             "--radius", "9km", "-n", "20000", "--seed", "6", "--confidence", "0.999", "--no-profile"])
     with fiona.open(GPKG, layer="clinics") as src:
         clinics = [(f.properties["clinic_id"], shape(f.geometry)) for f in src]
@@ -253,7 +253,7 @@ def test_overlap__clinics_with_one_radius(capsys):
 def test_overlap__gpkg_output_holds_intersections_in_the_input_crs(capsys, tmp_path, service_zones, one_layer_doc):
     out = tmp_path / "pairs.gpkg"
     rc, stdout, _ = run_cli(capsys, ["overlap", *ZONES, "-n", "40000", "--seed", "3", "--confidence", "0.999", "-q",
-                                     "--output", str(out)])
+                                     "--units", "m2", "--output", str(out)])
     assert rc == 0
     assert stdout == ""  # results went to the file
     with fiona.open(out) as src:
@@ -265,7 +265,7 @@ def test_overlap__gpkg_output_holds_intersections_in_the_input_crs(capsys, tmp_p
     by_id = dict(zip(ids, geoms))
     for f in feats:
         key = (f.properties["id_a"], f.properties["id_b"])
-        for field in ("estimate", "stderr", "ci_low", "ci_high", "exact_planar", "z"):
+        for field in ("estimate", "std_error", "ci_low", "ci_high", "exact_planar", "z"):
             assert f.properties[field] == pytest.approx(rows[key][field], rel=1e-12)
         got = shape(f.geometry)
         # back in lon/lat: the geometry is the intersection of the two zones (shapely in lon/lat;
@@ -307,7 +307,7 @@ def test_overlap__csv_and_units(capsys, one_layer_doc):
 
 # --- bad input -----------------------------------------------------------------------------------
 
-CLINICS = [str(GPKG), "--layer", "clinics", "--id-field", "clinic_id"]
+CLINICS = [str(GPKG), "--zones-layer", "clinics", "--zones-id-field", "clinic_id"]
 
 
 @pytest.fixture(scope="module")
@@ -325,7 +325,7 @@ def bad_points(tmp_path_factory):
         pytest.param(CLINICS, "give --radius or --radius-field", id="points-without-radius"),
         pytest.param([*CLINICS, "--radius", "5km", "--circle-vertices", "3"], "--circle-vertices: at least 8",
                      id="circle-vertices-3"),
-        pytest.param([*ZONES[:3], "--id-field", "nope"], "--id-field 'nope' is not a field", id="unknown-id-field"),
+        pytest.param([*ZONES[:3], "--zones-id-field", "nope"], "--zones-id-field 'nope' is not a field", id="unknown-id-field"),
         pytest.param([*ZONES, str(GPKG), "--other-layer", "districts", "--other-id-field", "nope"],
                      "--other-id-field 'nope' is not a field", id="unknown-other-id-field"),
         pytest.param([*ZONES, str(GPKG), "--other-layer", "clinics"], "give --radius or --radius-field",
@@ -364,7 +364,7 @@ def test_overlap__table_footer_says_no_row_is_flagged(capsys, one_layer_doc):
 
 @pytest.mark.parametrize("case", ["missing", "negative", "zero"])
 def test_overlap__bad_radius_values_in_a_field(capsys, bad_points, case):
-    rc, out, err = run_cli(capsys, ["overlap", bad_points[case], "--id-field", "site", "--radius-field", "reach",
+    rc, out, err = run_cli(capsys, ["overlap", bad_points[case], "--zones-id-field", "site", "--radius-field", "reach",
                                     "-n", "100"])
     assert rc == 2 and out == ""
     assert err.count("\n") == 1 and "Traceback" not in err
@@ -380,7 +380,7 @@ def test_overlap__other_layer_without_crs_names_the_other_flag(capsys, tmp_path)
     for extra, needle in cases:
         rc, out, err = run_cli(capsys, ["overlap", *ZONES, str(path), "-n", "100", *extra])
         assert rc == 2 and out == "" and err.count("\n") == 1
-        assert needle in err and " --input-crs" not in err, err
+        assert needle in err and " --zones-input-crs" not in err, err
 
 
 # --- end to end ----------------------------------------------------------------------------------
@@ -389,7 +389,7 @@ def test_overlap__other_layer_without_crs_names_the_other_flag(capsys, tmp_path)
 @pytest.mark.skipif(_script is None, reason="areamc script not installed")
 def test_overlap__installed_script_end_to_end(tmp_path, service_zones):
     out = tmp_path / "pairs.json"
-    proc = subprocess.run([_script, "overlap", *ZONES, "-n", "20000", "--seed", "9", "--confidence", "0.999",
+    proc = subprocess.run([_script, "overlap", *ZONES, "-n", "20000", "--seed", "9", "--units", "m2", "--confidence", "0.999",
                            "--output", str(out), "-q"], capture_output=True, text=True, timeout=120)
     assert proc.returncode == 0, proc.stderr
     doc = json.loads(out.read_text())
@@ -401,9 +401,9 @@ def test_overlap__installed_script_end_to_end(tmp_path, service_zones):
 
 def test_overlap__second_file_may_follow_options(capsys):
     # the same cross pairs whether OTHER comes before or after the options (same seed, same rows)
-    first = run_json(capsys, ["overlap", str(GPKG), str(GPKG), "--layer", "service_zones", "--other-layer",
+    first = run_json(capsys, ["overlap", str(GPKG), str(GPKG), "--zones-layer", "service_zones", "--other-layer",
                               "districts", "-n", "2000", "--seed", "4"])
-    later = run_json(capsys, ["overlap", str(GPKG), "--layer", "service_zones", str(GPKG), "--other-layer",
+    later = run_json(capsys, ["overlap", str(GPKG), "--zones-layer", "service_zones", str(GPKG), "--other-layer",
                               "districts", "-n", "2000", "--seed", "4"])
     assert first["results"] and later["results"] == first["results"]
 
@@ -439,7 +439,7 @@ def test_overlap__shared_sample_is_named_in_the_header(capsys):
     rc, out, err = run_cli(capsys, ["overlap", *ZONES, "-n", "20000", "--seed", "3", "--pair-sampling", "shared",
                                     "-q", "--no-profile"])
     assert rc == 0, err
-    assert "whose geometries meet; counted in one shared sample of 20,000 points over the layer's box" in out
+    assert "every pair counted in one shared sample of 20,000 points over the layer's box" in out
     rc, out, _ = run_cli(capsys, ["overlap", *ZONES, "-n", "2000", "--seed", "3", "-q", "--no-profile"])
     assert rc == 0 and "shared sample" not in out  # per pair by default for a fixed --points
 
@@ -466,5 +466,5 @@ def test_overlap__auto_pair_sampling_follows_the_stop_rule(capsys, extra, expect
 
 def test_overlap__unknown_pair_sampling_is_refused(capsys, tmp_path):
     zones = shutil.copy(GPKG, tmp_path / "zones.gpkg")
-    assert_refused(capsys, ["overlap", zones, "--layer", "service_zones", "--pair-sampling", "each", "-n", "100",
+    assert_refused(capsys, ["overlap", zones, "--zones-layer", "service_zones", "--pair-sampling", "each", "-n", "100",
                             "--output", tmp_path / "pairs.json"], r"--pair-sampling", tmp_path)

@@ -276,8 +276,8 @@ def test_peak__grid__is_the_default_of_both_jobs(peak, recwarn):
     row = integrate_density(peak["regions"], peak["source"], stop=stop, seed=5).rows[0]
     cov = estimate_coverage(peak["regions"], peak["zones"], stop=stop, seed=5, density=peak["source"]).rows[0]
     assert row.method == cov.population.method == GRID
-    assert abs(row.estimate - peak["total"]) <= 4 * row.stderr
-    assert abs(cov.population.share - peak["share"]) <= 4 * cov.population.stderr
+    assert abs(row.estimate - peak["total"]) <= 4 * row.std_error
+    assert abs(cov.population.share - peak["share"]) <= 4 * cov.population.std_error
     assert 0 < row.largest_weight_share < MAX_WEIGHT_SHARE and row.effective_points > MIN_EFFECTIVE_POINTS
     assert cov.to_dict()["population_largest_weight_share"] == cov.population.largest_weight_share > 0
     assert not [w for w in recwarn if "too concentrated" in str(w.message)]

@@ -78,9 +78,9 @@ def exact_share(region, zones, k: int) -> float:
 
 def within(row, exact: float) -> bool:
     """Inside the interval and within 4 standard errors (or exactly right when the SE is 0)."""
-    if row.stderr == 0:
+    if row.std_error == 0:
         return row.ci_low <= exact <= row.ci_high and abs(row.share - exact) <= 1e-9 + (row.ci_high - row.ci_low)
-    return row.ci_low <= exact <= row.ci_high and abs(row.share - exact) <= 4 * row.stderr
+    return row.ci_low <= exact <= row.ci_high and abs(row.share - exact) <= 4 * row.std_error
 
 
 def test_coverage__rows_per_region_and_sorted_unique_k(layers, report):
@@ -98,10 +98,10 @@ def test_coverage__shares_against_shapely(layers, report):
         assert row.exact_share == pytest.approx(exact, rel=1e-7, abs=1e-12), row
         assert within(row, exact), row
         assert row.region_area == pytest.approx(region.area, rel=1e-12)
-        assert row.covered == pytest.approx(row.share * region.area, rel=1e-12)
-        assert row.uncovered == pytest.approx((1 - row.share) * region.area, rel=1e-12)
-        assert row.uncovered_ci_low == pytest.approx((1 - row.ci_high) * region.area, rel=1e-9)
-        assert row.stderr == pytest.approx(math.sqrt(row.share * (1 - row.share) / row.points), rel=1e-12)
+        assert row.covered_area == pytest.approx(row.share * region.area, rel=1e-12)
+        assert row.area_below_k == pytest.approx((1 - row.share) * region.area, rel=1e-12)
+        assert row.area_below_k_ci_low == pytest.approx((1 - row.ci_high) * region.area, rel=1e-9)
+        assert row.std_error == pytest.approx(math.sqrt(row.share * (1 - row.share) / row.region_points), rel=1e-12)
         assert row.interval == "wilson" and row.claim is None and row.verdict is None
         assert not row.flagged
 
@@ -161,8 +161,8 @@ def test_coverage__share_tolerance_stops_when_met(layers):
     for row in report.rows:
         assert row.stop_reason == "target"
         assert (row.ci_high - row.ci_low) / 2 <= TWO_STAGE_SLACK * 0.01
-        assert row.points < budget / 50  # ~10 000 points suffice for ±0.01 at p = 1/2
-        assert abs(row.share - row.exact_share) <= 4 * row.stderr + 1e-12
+        assert row.region_points < budget / 50  # ~10 000 points suffice for ±0.01 at p = 1/2
+        assert abs(row.share - row.exact_share) <= 4 * row.std_error + 1e-12
 
 
 def test_coverage__relative_share_tolerance(layers):
@@ -173,8 +173,8 @@ def test_coverage__relative_share_tolerance(layers):
     for row in (r for r in report.rows if r.exact_share > 0.1):
         assert row.stop_reason == "target"
         assert (row.ci_high - row.ci_low) / 2 <= TWO_STAGE_SLACK * 0.05 * row.share
-        assert row.points < budget / 50
-        assert abs(row.share - row.exact_share) <= 4 * row.stderr
+        assert row.region_points < budget / 50
+        assert abs(row.share - row.exact_share) <= 4 * row.std_error
 
 
 def test_coverage__zones_in_another_crs_are_reprojected():
@@ -223,12 +223,12 @@ def test_claim__far_from_the_truth_stops_early_with_the_right_verdict(claim_laye
     budget = 1_000_000
     report = estimate_coverage(regions, zones, claim=0.5, stop=StopRule(points=budget), chunk=200, seed=5)
     verdicts = {r.id: r for r in report.rows}
-    for rid, expected in (("high", "meets"), ("low", "falls short")):
+    for rid, expected in (("high", "meets"), ("low", "falls-short")):
         row = verdicts[rid]
         exact = exact_share(regions.planar[regions.ids.index(rid)], list(zones.planar), 1)
         assert (exact > 0.9) if rid == "high" else (exact < 0.1)  # guard on the test design
         assert row.verdict == expected
-        assert row.points <= 1_000  # decided after a few chunks of 200, not a million points
+        assert row.region_points <= 1_000  # decided after a few chunks of 200, not a million points
         assert row.claim == 0.5 and row.interval == "confidence-sequence"
         assert row.ci_low <= exact <= row.ci_high
     assert report.shortfall
@@ -242,7 +242,7 @@ def test_claim__undecided_claim_uses_the_budget(claim_layers):
     report = estimate_coverage(regions, zones, claim=round(exact, 3), stop=StopRule(points=20_000), chunk=500, seed=6)
     row = next(r for r in report.rows if r.id == "high")
     assert row.verdict == "undecided"
-    assert row.points > 0.9 * 20_000  # nearly every box point lands in this near-rectangular region
+    assert row.region_points > 0.9 * 20_000  # nearly every box point lands in this near-rectangular region
 
 
 def test_claim__one_cannot_be_met_by_sampling(claim_layers):
@@ -255,7 +255,7 @@ def test_claim__one_cannot_be_met_by_sampling(claim_layers):
     (row,) = estimate_coverage(*full, claim=1.0, stop=StopRule(points=5_000), chunk=1_000, seed=7).rows
     assert row.share == 1.0 and row.verdict == "undecided"
     rows = estimate_coverage(regions, zones, claim=1.0, stop=StopRule(points=5_000), chunk=1_000, seed=7).rows
-    assert all(r.verdict == "falls short" for r in rows)
+    assert all(r.verdict == "falls-short" for r in rows)
 
 
 # --- bad input ---------------------------------------------------------------------------------

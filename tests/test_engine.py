@@ -89,7 +89,7 @@ def test_hit_or_miss__stderr__inverse_square_root():
     # from R = 300 replicates is about 1/sqrt(2R) = 4%, so 15% is close to 4 SE).
     reported = np.array(
         [
-            np.mean([AreaEstimate.from_counts(round(f * m), int(m), 1.0, 0.95).stderr for f in fractions[:, j]])
+            np.mean([AreaEstimate.from_counts(round(f * m), int(m), 1.0, 0.95).std_error for f in fractions[:, j]])
             for j, m in enumerate(marks)
         ]
     )

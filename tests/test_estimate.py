@@ -28,7 +28,7 @@ def test_area_estimate__from_counts():
     ref = stats.binomtest(81, 263).proportion_ci(method="wilson")
     p = 81 / 263
     assert est.estimate == pytest.approx(2.5e6 * p, rel=1e-15)
-    assert est.stderr == pytest.approx(2.5e6 * math.sqrt(p * (1 - p) / 263), rel=1e-15)
+    assert est.std_error == pytest.approx(2.5e6 * math.sqrt(p * (1 - p) / 263), rel=1e-15)
     assert est.ci_low == pytest.approx(2.5e6 * ref.low, rel=1e-12)
     assert est.ci_high == pytest.approx(2.5e6 * ref.high, rel=1e-12)
     assert est.half_width == pytest.approx(2.5e6 * (ref.high - ref.low) / 2, rel=1e-12)
@@ -54,7 +54,7 @@ def test_mean_estimate__sample_mean_and_standard_error():
     est = mean_estimate(scores.sum(), (scores**2).sum(), len(scores), scale, 0.9)
     assert isinstance(est, TotalEstimate)
     assert est.estimate == pytest.approx(scale * scores.mean(), rel=1e-12)
-    assert est.stderr == pytest.approx(scale * stats.sem(scores), rel=1e-9)
+    assert est.std_error == pytest.approx(scale * stats.sem(scores), rel=1e-9)
     low, high = stats.norm.interval(0.9, loc=scale * scores.mean(), scale=scale * stats.sem(scores))
     assert (est.ci_low, est.ci_high) == (pytest.approx(low, rel=1e-9), pytest.approx(high, rel=1e-9))
     assert est.half_width == pytest.approx((high - low) / 2, rel=1e-9)
@@ -65,14 +65,14 @@ def test_mean_estimate__sample_mean_and_standard_error():
 
 def test_mean_estimate__constant_scores_have_zero_stderr():
     est = mean_estimate(30.0, 90.0, 10, 2.0, 0.95)  # ten scores of 3
-    assert est.estimate == 6.0 and est.stderr == 0.0 and est.ci_low == est.ci_high == 6.0
+    assert est.estimate == 6.0 and est.std_error == 0.0 and est.ci_low == est.ci_high == 6.0
 
 
 def test_total_estimate__deviation_is_difference_over_stderr():
-    # (estimate − exact) / stderr, the stderr floored at the half-width over z (scipy norm.ppf).
-    est = TotalEstimate(estimate=105.0, stderr=2.0, ci_low=102.0, ci_high=108.0, points=1000, confidence=0.95)
+    # (estimate − exact) / std_error, std_error floored at the half-width over z (scipy norm.ppf).
+    est = TotalEstimate(estimate=105.0, std_error=2.0, ci_low=102.0, ci_high=108.0, points=1000, confidence=0.95)
     assert est.deviation(100.0) == pytest.approx(2.5, rel=1e-12)
-    floored = TotalEstimate(estimate=105.0, stderr=0.0, ci_low=104.0, ci_high=106.0, points=1000, confidence=0.95)
+    floored = TotalEstimate(estimate=105.0, std_error=0.0, ci_low=104.0, ci_high=106.0, points=1000, confidence=0.95)
     assert floored.deviation(100.0) == pytest.approx(5.0 / (1.0 / stats.norm.ppf(0.975)), rel=1e-12)
 
 

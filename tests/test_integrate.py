@@ -52,7 +52,7 @@ def on_plane(*groups, crs=PLANE, densify_m=1e9, ids=None):
 def check_row(row, ref, *, rel_exact=1e-9):
     """The estimate's interval holds `ref`; within 4 standard errors; exact total agrees."""
     assert row.ci_low <= ref <= row.ci_high, (row, ref)
-    assert abs(row.estimate - ref) <= 4 * row.stderr + 1e-12 * abs(ref), (row, ref)
+    assert abs(row.estimate - ref) <= 4 * row.std_error + 1e-12 * abs(ref), (row, ref)
     if row.exact is not None:
         assert row.exact == pytest.approx(ref, rel=rel_exact, abs=1e-9)
         assert row.z is not None and abs(row.z) <= 4
@@ -109,7 +109,7 @@ def test_blocks__worked_example_in_fractions():
     check_row(row, 4.5, rel_exact=1e-12)
     # importance sampling: the estimate is 17 x (hits / points), a binomial proportion
     assert row.method == "importance"
-    assert row.stderr == pytest.approx(17 * math.sqrt((9 / 34) * (25 / 34) / 200_000), rel=0.02)
+    assert row.std_error == pytest.approx(17 * math.sqrt((9 / 34) * (25 / 34) / 200_000), rel=0.02)
 
 
 def test_blocks__uniform_total_over_a_region_larger_than_the_blocks():
@@ -142,7 +142,7 @@ def test_blocks__result_does_not_depend_on_chunk_size(grid):
         else:  # float sums of scores: equal up to the rounding of a different summation order
             for ra, rb in zip(a.rows, b.rows):
                 assert ra.points == rb.points
-                for key in ("estimate", "stderr", "ci_low", "ci_high"):
+                for key in ("estimate", "std_error", "ci_low", "ci_high"):
                     assert getattr(ra, key) == pytest.approx(getattr(rb, key), rel=1e-12)
         assert [r.estimate for r in a.rows] != [r.estimate for r in c.rows]
 
@@ -155,7 +155,7 @@ def test_blocks__relative_precision_target(grid):
         assert row.stop_reason == "target" and row.pilot_points > 0
         assert (row.ci_high - row.ci_low) / 2 <= TWO_STAGE_SLACK * 0.003 * row.estimate
         assert row.points + row.pilot_points < 5_000_000
-        assert abs(row.estimate - overlay_total(blocks.planar, counts, region)) <= 4 * row.stderr
+        assert abs(row.estimate - overlay_total(blocks.planar, counts, region)) <= 4 * row.std_error
 
 
 # --- rasters -----------------------------------------------------------------------------------
@@ -289,7 +289,7 @@ def test_expression__polynomial_over_a_rectangle():
     row = report.rows[0]
     assert row.method == "grid-importance" and row.exact is None and row.z is None  # expressions: a pilot grid
     check_row(row, exact)
-    assert row.stderr < 0.01 * exact  # the check has power: a 1% error would be seen
+    assert row.std_error < 0.01 * exact  # the check has power: a 1% error would be seen
 
 
 def test_expression__polynomial_to_a_relative_precision():
@@ -302,7 +302,7 @@ def test_expression__polynomial_to_a_relative_precision():
     assert row.stop_reason == "target" and row.pilot_points > 0
     assert (row.ci_high - row.ci_low) / 2 <= TWO_STAGE_SLACK * 0.002 * row.estimate
     assert row.points + row.pilot_points < 10_000_000
-    assert abs(row.estimate - exact) <= 4 * row.stderr
+    assert abs(row.estimate - exact) <= 4 * row.std_error
 
 
 def test_expression__gaussian_over_a_disk():
@@ -317,7 +317,7 @@ def test_expression__gaussian_over_a_disk():
     row = integrate_density(regions, ExpressionDensity(text, regions.plane), stop=StopRule(points=200_000),
                             confidence=CONF, seed=14).rows[0]
     check_row(row, exact)
-    assert row.stderr < 0.01 * exact
+    assert row.std_error < 0.01 * exact
 
 
 @pytest.mark.parametrize("text, shown", [("x * 1e-9", "gives -"), ("log(x)", "gives nan")])

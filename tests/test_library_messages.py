@@ -86,9 +86,9 @@ def test_describe__renders_flags__default_and_special_names():
 
 
 def test_cli__library_error__is_rendered_with_the_flag(capsys):
-    rc, out, err = run_cli(capsys, ["area", "sample_data/vale_districts.geojson", "--crs", "EPSG:3857"])
+    rc, out, err = run_cli(capsys, ["area", "sample_data/vale_districts.geojson", "--plane-crs", "EPSG:3857"])
     assert rc == 2 and out == ""
-    assert err.startswith("areamc: error: --crs EPSG:3857: not equal-area")
+    assert err.startswith("areamc: error: --plane-crs EPSG:3857: not equal-area")
 
 
 @pytest.mark.parametrize("path", CLI, ids=lambda p: p.name)

@@ -207,9 +207,9 @@ def test_render_table__heading_dashes_alignment_and_units():
     columns = spans(dashes)
     assert len(columns) == 4 and all(b2 - a1 == 2 for (_, a1), (b2, _) in zip(columns, columns[1:]))
     expected = [
-        ["R01", "5,415.814", "20,000", ""],  # 54 158 137 m² = 5415.8137 ha (NIST SP 811)
-        ["LONGER_ID", "922.6265", "5", "yes"],
-        ["R3", "-", "1,000,000", ""],
+        ["R01", "5,415.814 ", "20,000", ""],  # 54 158 137 m² = 5415.8137 ha (NIST SP 811)
+        ["LONGER_ID", "  922.6265", "5", "yes"],  # decimal points aligned
+        ["R3", "    -     ", "1,000,000", ""],
     ]
     headings = ["id", "estimate", "points", "flag"]
     for (a, b), cells in zip(columns, zip(headings, *expected)):
@@ -218,10 +218,10 @@ def test_render_table__heading_dashes_alignment_and_units():
         padded = line.ljust(columns[-1][1])
         for i, ((a, b), cell) in enumerate(zip(columns, cells)):
             field = padded[a:b]
-            if i == 0:
-                assert field == cell.ljust(b - a)  # first column left-aligned
+            if i in (0, 3):
+                assert field == cell.ljust(b - a)  # text columns (ids, yes/blank) left-aligned
             else:
-                assert field == cell.rjust(b - a)  # the others right-aligned
+                assert field == cell.rjust(b - a)  # numbers right-aligned, decimal points lined up
             if a > 0:
                 assert padded[a - 2 : a] == "  "
         assert line == line.rstrip()  # no trailing blanks

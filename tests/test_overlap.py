@@ -112,8 +112,8 @@ def exactly_k_by_inclusion_exclusion(zones) -> dict[int, float]:
     return {k: sum((-1) ** (j - k) * math.comb(j, k) * s[j] for j in range(k, n + 1)) for k in range(1, n + 1)}
 
 
-def within(estimate, low, high, exact, stderr):
-    return low <= exact <= high and abs(estimate - exact) <= 4 * stderr
+def within(estimate, low, high, exact, std_error):
+    return low <= exact <= high and abs(estimate - exact) <= 4 * std_error
 
 
 # --- pairs -----------------------------------------------------------------------------------
@@ -142,7 +142,7 @@ def test_overlaps__estimates_within_intervals_of_shapely_intersections(mixed, mi
     areas = dict(zip(mixed.ids, shapely.area(mixed.planar)))
     for row in mixed_report.rows:
         exact = expected[(row.id_a, row.id_b)]
-        assert within(row.estimate, row.ci_low, row.ci_high, exact, row.stderr), row
+        assert within(row.estimate, row.ci_low, row.ci_high, exact, row.std_error), row
         assert row.exact_planar == pytest.approx(exact, rel=1e-9)
         assert row.share_a == pytest.approx(row.estimate / areas[row.id_a], rel=1e-12)
         assert row.share_b == pytest.approx(row.estimate / areas[row.id_b], rel=1e-12)
@@ -159,12 +159,12 @@ def test_overlaps__nested_and_identical_zones(mixed, mixed_report):
     area = dict(zip(mixed.ids, shapely.area(mixed.planar)))
     # nested: the overlap is the inner zone, its share of the inner zone is 1 within error
     nested = rows[("big", "nested")]
-    assert within(nested.estimate, nested.ci_low, nested.ci_high, area["nested"], nested.stderr)
-    assert abs(nested.share_b - 1) <= 4 * nested.stderr / area["nested"]
+    assert within(nested.estimate, nested.ci_low, nested.ci_high, area["nested"], nested.std_error)
+    assert abs(nested.share_b - 1) <= 4 * nested.std_error / area["nested"]
     # identical: the overlap is the whole zone; both shares are 1 within error
     same = rows[("big", "big_copy")]
-    assert within(same.estimate, same.ci_low, same.ci_high, area["big"], same.stderr)
-    assert abs(same.share_a - 1) <= 4 * same.stderr / area["big"]
+    assert within(same.estimate, same.ci_low, same.ci_high, area["big"], same.std_error)
+    assert abs(same.share_a - 1) <= 4 * same.std_error / area["big"]
 
 
 def test_overlaps__holed_zone_overlap_excludes_the_hole(mixed, mixed_report):
@@ -172,8 +172,8 @@ def test_overlaps__holed_zone_overlap_excludes_the_hole(mixed, mixed_report):
     i, j = mixed.ids.index("big"), mixed.ids.index("holed")
     exact = shapely.intersection(mixed.planar[i], mixed.planar[j]).area
     shell_only = shapely.intersection(mixed.planar[i], Polygon(mixed.planar[j].exterior)).area
-    assert shell_only - exact > 10 * row.stderr  # the hole matters at this precision ...
-    assert within(row.estimate, row.ci_low, row.ci_high, exact, row.stderr)  # ... and is left out
+    assert shell_only - exact > 10 * row.std_error  # the hole matters at this precision ...
+    assert within(row.estimate, row.ci_low, row.ci_high, exact, row.std_error)  # ... and is left out
 
 
 def test_overlaps__disjoint_zones_give_no_pairs():
@@ -184,8 +184,8 @@ def test_overlaps__disjoint_zones_give_no_pairs():
     assert [m.k for m in report.multiplicity] == [1]
     (k1,) = report.multiplicity
     union = shapely.union_all(layer.planar).area
-    assert within(k1.area_at_least, k1.area_at_least_ci_low, k1.area_at_least_ci_high, union, k1.area_at_least_stderr)
-    assert k1.exact_area_at_least == pytest.approx(union, rel=1e-9)
+    assert within(k1.area_at_least, k1.area_at_least_ci_low, k1.area_at_least_ci_high, union, k1.area_at_least_std_error)
+    assert k1.area_at_least_exact == pytest.approx(union, rel=1e-9)
 
 
 def test_overlaps__zones_that_only_touch_are_not_overlapping_pairs():
@@ -213,7 +213,7 @@ def test_overlaps__two_layers_give_cross_pairs_only():
     area_b = dict(zip(b.ids, shapely.area(b.planar)))
     for row in report.rows:
         exact = expected[(row.id_a, row.id_b)]
-        assert within(row.estimate, row.ci_low, row.ci_high, exact, row.stderr)
+        assert within(row.estimate, row.ci_low, row.ci_high, exact, row.std_error)
         assert row.share_a == pytest.approx(row.estimate / area_a[row.id_a], rel=1e-12)
         assert row.share_b == pytest.approx(row.estimate / area_b[row.id_b], rel=1e-12)
     assert report.multiplicity == ()  # no profile across two layers
@@ -244,7 +244,7 @@ def test_overlaps__precision_target_met_before_the_cap(mixed):
         # two-stage target: the final half-width is near the target, random, and may exceed it by a
         # few percent (the pilot meets 2x the target, the final batch is sized to meet it)
         assert (row.ci_high - row.ci_low) / 2 <= 1.3 * 0.03 * row.estimate
-        assert abs(row.estimate - expected[(row.id_a, row.id_b)]) <= 4 * row.stderr
+        assert abs(row.estimate - expected[(row.id_a, row.id_b)]) <= 4 * row.std_error
     # the final batches are sized from the pilots: at fills of 0.4 to 1 a 3% target needs about
     # 4300 (1 - p) / p points at 95% (the normal approximation, common practice), far below the
     # fixed default of 100 000; a nearly full box still gets the 1000-point floor of a final batch
@@ -266,7 +266,7 @@ def test_overlaps__rows_record_why_they_stopped_and_the_pilot(mixed):
 def test_overlaps__no_exact_leaves_references_empty(mixed):
     report = estimate_overlaps(mixed, stop=StopRule(points=2_000), seed=5, exact=False)
     assert all(r.exact_planar is None and r.z is None for r in report.rows)
-    assert all(m.exact_area_exactly is None and m.exact_area_at_least is None for m in report.multiplicity)
+    assert all(m.area_exactly_exact is None and m.area_at_least_exact is None for m in report.multiplicity)
     assert report.exact_profile == "not-asked"
 
 
@@ -306,13 +306,13 @@ def test_multiplicity__three_disks_against_inclusion_exclusion(pair_sampling):
         assert m.area_exactly_ci_low <= exact[m.k] <= m.area_exactly_ci_high, m
         assert abs(m.area_exactly - exact[m.k]) <= 4 * se_exactly
         assert within(m.area_at_least, m.area_at_least_ci_low, m.area_at_least_ci_high, at_least[m.k],
-                      m.area_at_least_stderr), m
-        assert m.exact_area_exactly == pytest.approx(exact[m.k], rel=1e-7)
-        assert m.exact_area_at_least == pytest.approx(at_least[m.k], rel=1e-7)
+                      m.area_at_least_std_error), m
+        assert m.area_exactly_exact == pytest.approx(exact[m.k], rel=1e-7)
+        assert m.area_at_least_exact == pytest.approx(at_least[m.k], rel=1e-7)
         # z of the at-least-k area: the mid-p binomial score at p0 = exact / box (Lancaster 1961)
         box_area = report_box_area(layer)
         hits = round(m.area_at_least / box_area * 400_000)
-        assert m.z == pytest.approx(mid_p_z(hits, 400_000, m.exact_area_at_least / box_area), rel=1e-6, abs=1e-9)
+        assert m.z == pytest.approx(mid_p_z(hits, 400_000, m.area_at_least_exact / box_area), rel=1e-6, abs=1e-9)
         assert not m.flagged
 
 
@@ -336,7 +336,7 @@ def test_multiplicity__mixed_zones_against_inclusion_exclusion(mixed, mixed_repo
     for k, m in profile.items():
         least = sum(v for j, v in exact.items() if j >= k)
         assert within(m.area_at_least, m.area_at_least_ci_low, m.area_at_least_ci_high, least,
-                      m.area_at_least_stderr), m
+                      m.area_at_least_std_error), m
         assert m.area_exactly_ci_low <= exact[k] <= m.area_exactly_ci_high, m
     # a k without rows had no hits: its area must fit under the 0-hit Wilson upper bound
     # z²/(n + z²) of the box (Wilson 1927)
@@ -540,7 +540,7 @@ def test_shared__absolute_tolerance_met_by_every_pair_and_the_profile(crowd):
         assert row.stop_reason == "target" and row.pilot_points > 0 and row.pilot_points % 8_192 == 0
         # two-stage target (methods §3): the final half-width lands near the target, may exceed it a little
         assert (row.ci_high - row.ci_low) / 2 <= 1.3 * target
-        assert abs(row.estimate - row.exact_planar) <= 4 * max(row.stderr, target / 4)
+        assert abs(row.estimate - row.exact_planar) <= 4 * max(row.std_error, target / 4)
     for m in report.multiplicity:
         assert (m.area_at_least_ci_high - m.area_at_least_ci_low) / 2 <= 1.3 * target
 
@@ -552,7 +552,7 @@ def test_shared__no_pairs_and_no_profile_draws_nothing():
     with_profile = estimate_overlaps(layer, stop=StopRule(points=20_000), seed=1, pair_sampling=SHARED)
     (k1,) = with_profile.multiplicity
     union = shapely.union_all(layer.planar).area
-    assert within(k1.area_at_least, k1.area_at_least_ci_low, k1.area_at_least_ci_high, union, k1.area_at_least_stderr)
+    assert within(k1.area_at_least, k1.area_at_least_ci_low, k1.area_at_least_ci_high, union, k1.area_at_least_std_error)
 
 
 @pytest.mark.parametrize("stop, expected", [

@@ -151,7 +151,7 @@ def test_area__two_workers__every_field_identical_to_one(scene, sampler):
     assert bits(other.rows) != bits(two.rows), "another seed must give other rows, or the identity shows nothing"
     for row in two.rows:  # against shapely's area of the same plane geometry (a reference library)
         assert row.exact_planar == pytest.approx(shapely.area(scene["regions"].planar[row.feature_index]), rel=1e-12)
-        assert abs(row.estimate - row.exact_planar) <= 4 * row.stderr
+        assert abs(row.estimate - row.exact_planar) <= 4 * row.std_error
 
 
 def test_area__one_feature_split_by_stream_spans__identical_to_one_worker(scene, monkeypatch):
@@ -184,7 +184,7 @@ def test_coverage__two_workers__every_field_identical_to_one(scene):
         region = scene["regions"].planar[row.feature_index]
         exact = shapely.area(shapely.intersection(region, union)) / shapely.area(region)
         assert row.exact_share == pytest.approx(exact, rel=1e-9)
-        assert abs(row.share - exact) <= 4 * row.stderr + 1e-12
+        assert abs(row.share - exact) <= 4 * row.std_error + 1e-12
 
 
 def test_coverage__blocks_and_a_claim__identical_on_two_workers(scene):
@@ -206,7 +206,7 @@ def test_integrate__two_workers__identical_to_one(scene, source):
         assert any("1 nodata cell" in m for m in messages), messages
         scene["raster"].for_region(scene["regions"].planar[0])  # the workers left the parent's file open
     for row in two.rows:  # against the exact totals of the rows, each within 4 standard errors
-        assert abs(row.estimate - row.exact) <= 4 * row.stderr + 1e-9 * row.exact
+        assert abs(row.estimate - row.exact) <= 4 * row.std_error + 1e-9 * row.exact
 
 
 def test_integrate__raster_on_spawned_workers__identical_to_one(scene, monkeypatch):
@@ -248,7 +248,7 @@ def test_overlap__pairs_and_profile__identical_on_two_workers(scene):
     for row in two.rows:  # shapely 2 (GEOS) intersection areas, recomputed here
         exact = shapely.area(shapely.intersection(zones[row.feature_index_a], zones[row.feature_index_b]))
         assert row.exact_planar == pytest.approx(exact, rel=1e-9)
-        assert abs(row.estimate - exact) <= 4 * row.stderr + 1e-9 * exact
+        assert abs(row.estimate - exact) <= 4 * row.std_error + 1e-9 * exact
 
 
 def test_overlap__cross_pairs__identical_on_two_workers(scene):
@@ -269,7 +269,7 @@ def _cli_pair(capsys, argv):
 
 def test_cli__coverage_with_blocks__json_identical(capsys, scene):
     g = scene["gpkg"]
-    one, two = _cli_pair(capsys, ["coverage", g, g, "--layer", "districts", "--id-field", "name", "--zones-layer",
+    one, two = _cli_pair(capsys, ["coverage", g, g, "--regions-layer", "districts", "--regions-id-field", "name", "--zones-layer",
                                   "zones", "--zones-id-field", "name", "--at-least", "1", "--at-least", "2",
                                   "--density", g, "--density-layer", "blocks", "--count-field", "pop",
                                   "--points", "20000", "--seed", "2026"])
@@ -278,10 +278,10 @@ def test_cli__coverage_with_blocks__json_identical(capsys, scene):
 
 def test_cli__integrate_raster_and_overlap__json_identical(capsys, scene):
     g = scene["gpkg"]
-    one, two = _cli_pair(capsys, ["integrate", g, "--layer", "districts", "--id-field", "name", "--density",
+    one, two = _cli_pair(capsys, ["integrate", g, "--regions-layer", "districts", "--regions-id-field", "name", "--density",
                                   scene["tif"], "--points", "20000", "--seed", "7"])
     assert one == two and len(two["results"]) == 6
-    one, two = _cli_pair(capsys, ["overlap", g, "--layer", "zones", "--id-field", "name", "--points", "20000",
+    one, two = _cli_pair(capsys, ["overlap", g, "--zones-layer", "zones", "--zones-id-field", "name", "--points", "20000",
                                   "--seed", "7"])
     assert one == two and two["results"] and two["multiplicity"]
     one, two = _cli_pair(capsys, ["area", g, "--layer", "districts", "--id-field", "name", "--points", "20000",
@@ -301,12 +301,12 @@ def test_cli__integrate_raster_and_overlap__json_identical(capsys, scene):
 )
 def test_cli__bad_workers__refused(capsys, scene, value, match):
     g = scene["gpkg"]
-    assert_refused(capsys, ["overlap", g, "--layer", "zones", "--workers", value], match, scene["folder"])
+    assert_refused(capsys, ["overlap", g, "--zones-layer", "zones", "--workers", value], match, scene["folder"])
 
 
 def test_cli__error_in_a_worker__same_line_as_one_worker(capsys, scene):
     g = scene["gpkg"]
-    argv = ["integrate", g, "--layer", "districts", "--id-field", "name", "--density", BAD_EXPRESSION,
+    argv = ["integrate", g, "--regions-layer", "districts", "--regions-id-field", "name", "--density", BAD_EXPRESSION,
             "--points", "5000", "--seed", "1"]
     lines = [assert_refused(capsys, [*argv, "--workers", w], r"--density: expression", scene["folder"])
              for w in ("1", "2")]
@@ -454,7 +454,7 @@ def test_fixed_count_sums__two_workers__same_sums_as_the_engine(weighted):
 def test_cli__table_output__identical_text(capsys, scene):
     # the rows as a user sees them, rendered as the table, byte for byte
     g = scene["gpkg"]
-    argv = ["coverage", g, g, "--layer", "districts", "--id-field", "name", "--zones-layer", "zones",
+    argv = ["coverage", g, g, "--regions-layer", "districts", "--regions-id-field", "name", "--zones-layer", "zones",
             "--zones-id-field", "name", "--points", "5000", "--seed", "3", "-q"]
     outs = [run_cli(capsys, [*argv, "--workers", w]) for w in ("1", "2")]
     assert outs[0][0] == outs[1][0] == 0

@@ -100,7 +100,7 @@ def test_area_job__toy_sampler__holds_the_exact_areas(scene, toy):
     assert ToySampler.draws - before == 40_000 * len(regions)
     assert report.run.sampler == "toy"
     for row, geom in zip(report.rows, regions.planar):
-        assert abs(row.estimate - shapely.area(geom)) <= TOLERANCE_SE * row.stderr
+        assert abs(row.estimate - shapely.area(geom)) <= TOLERANCE_SE * row.std_error
 
 
 def test_overlap_job__toy_sampler__holds_shapely_intersections(scene, toy):
@@ -111,10 +111,10 @@ def test_overlap_job__toy_sampler__holds_shapely_intersections(scene, toy):
     assert report.rows
     for row, (i, j) in zip(report.rows, report.pairs):
         exact = shapely.area(shapely.intersection(zones.planar[i], zones.planar[j]))
-        assert abs(row.estimate - exact) <= TOLERANCE_SE * row.stderr
+        assert abs(row.estimate - exact) <= TOLERANCE_SE * row.std_error
     union = shapely.area(shapely.union_all(zones.planar))
     at_least_1 = report.multiplicity[0]
-    assert abs(at_least_1.area_at_least - union) <= TOLERANCE_SE * at_least_1.area_at_least_stderr
+    assert abs(at_least_1.area_at_least - union) <= TOLERANCE_SE * at_least_1.area_at_least_std_error
 
 
 def test_coverage_job__toy_sampler__holds_exact_area_and_population_shares(scene, toy):
@@ -128,11 +128,11 @@ def test_coverage_job__toy_sampler__holds_exact_area_and_population_shares(scene
     for row, region in zip(report.rows, regions.planar):
         covered = shapely.intersection(region, union)
         exact_share = shapely.area(covered) / shapely.area(region)
-        assert abs(row.share - exact_share) <= TOLERANCE_SE * row.stderr
+        assert abs(row.share - exact_share) <= TOLERANCE_SE * row.std_error
         people = row.population
         assert people.method == "importance"  # the toy sampler served the proposal domain too
         exact_pop = overlay_total(blocks.planar, counts, covered) / overlay_total(blocks.planar, counts, region)
-        assert abs(people.share - exact_pop) <= TOLERANCE_SE * people.stderr
+        assert abs(people.share - exact_pop) <= TOLERANCE_SE * people.std_error
 
 
 @pytest.mark.parametrize("kind", ["blocks", "expression"])
@@ -149,6 +149,6 @@ def test_integrate_job__toy_sampler__holds_the_exact_totals(scene, toy, kind):
         else:
             exact = shapely.area(region) * (1e-4 + 1e-10 * (shapely.centroid(region).x + 40000))
         # blocks wholly inside a district give every importance point a hit (standard error 0): exact then
-        assert abs(row.estimate - exact) <= TOLERANCE_SE * row.stderr + 1e-9 * exact
+        assert abs(row.estimate - exact) <= TOLERANCE_SE * row.std_error + 1e-9 * exact
         # blocks: those wholly in the region counted whole, the rest drawn; expressions: a pilot grid
         assert row.method in (("importance", "stratified-importance") if kind == "blocks" else ("grid-importance",))

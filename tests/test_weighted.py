@@ -223,7 +223,7 @@ def test_weighted_run__raster_without_importance_sampler_still_counts_its_densit
                            stop=StopRule(points=50_000), confidence=0.95, chunk=10_000)
     assert run is not None and run.method == GRID
     total = run.total(0.95)
-    assert abs(total.estimate - 1e-4 * geom.area) <= 4 * total.stderr + 1e-9 * geom.area
+    assert abs(total.estimate - 1e-4 * geom.area) <= 4 * total.std_error + 1e-9 * geom.area
 
 
 # --- concentrated densities: effective points (Kish 1965) ----------------------------------------

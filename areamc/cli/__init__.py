@@ -17,7 +17,7 @@ import warnings
 from contextlib import contextmanager
 
 from .. import __version__
-from ..errors import AreamcError, AreamcWarning
+from ..errors import AreamcError, AreamcNotice, AreamcWarning
 from . import area, coverage, inspect, integrate, overlap
 from .common import OUTPUT_PARAMS, Parser, describe, flag_names
 
@@ -69,7 +69,8 @@ def build_parser() -> Parser:
 
 def _show_warning(message, category, filename, lineno, file=None, line=None):
     text = " ".join(describe(message).split())
-    prefix = "warning" if issubclass(category, AreamcWarning) else f"warning ({category.__name__})"
+    prefix = ("note" if issubclass(category, AreamcNotice) else "warning" if issubclass(category, AreamcWarning)
+              else f"warning ({category.__name__})")
     print(f"areamc: {prefix}: {text}", file=sys.stderr)
 
 
@@ -78,12 +79,15 @@ def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else list(argv)
     options = argv[: argv.index("--")] if "--" in argv else argv  # after "--" every argument is a file
     verbose = "--verbose" in options or "-v" in options
+    quiet = "--quiet" in options or "-q" in options
     with warnings.catch_warnings():
         warnings.showwarning = _show_warning
         if not verbose:
             # other libraries' warnings are for developers; areamc's own always show
             warnings.filterwarnings("ignore")
             warnings.filterwarnings("always", category=AreamcWarning)
+        if quiet:
+            warnings.filterwarnings("ignore", category=AreamcNotice)
         with _sigterm_raises():
             return _run(argv, verbose)
 

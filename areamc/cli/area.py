@@ -1,5 +1,6 @@
 """``areamc area FILE``: estimate each feature's area with an interval and exact checks."""
 
+
 from __future__ import annotations
 
 from ..area import estimate_areas
@@ -16,6 +17,7 @@ from .common import (
     add_sampling_options,
     check_outputs,
     flag_line,
+    header_lines,
     layer_options,
     positive_int,
     run_metadata,
@@ -24,17 +26,23 @@ from .common import (
 )
 from .progress import ProgressBar
 
+DESCRIPTION = """\
+Estimate the area of every polygon in FILE by throwing random points into its bounding box on an
+equal-area plane. Each row gives the estimate with its standard error and confidence interval, and,
+as a check, the exact planar area (shapely, same plane) and the geodesic area on the WGS84
+ellipsoid (pyproj.Geod), with the estimate's deviation z from the exact area in standard errors."""
+
 COLUMNS = (
     Column("id"),
-    Column("estimate", area=True),
-    Column("stderr", area=True),
-    Column("ci_low", area=True),
-    Column("ci_high", area=True),
+    Column("estimate", area=True, error="std_error"),
+    Column("std_error", area=True, error="std_error"),
+    Column("ci_low", area=True, error="std_error"),
+    Column("ci_high", area=True, error="std_error"),
     Column("points"),
-    Column("exact_planar", area=True),
-    Column("geodesic", area=True),
+    Column("exact_planar", area=True, error="std_error"),
+    Column("geodesic", area=True, error="std_error"),
     Column("z", spec=".2f"),
-    Column("flagged", "flag"),
+    Column("flagged"),
 )
 TRACE_COLUMNS = (
     Column("id"),
@@ -42,21 +50,15 @@ TRACE_COLUMNS = (
     Column("points"),
     Column("hits"),
     Column("estimate", area=True),
-    Column("stderr", area=True),
+    Column("std_error", area=True),
     Column("ci_low", area=True),
     Column("ci_high", area=True),
 )
 
 
 def _header(args, report, layer) -> list[str]:
-    plane = report.run.plane
-    return [
-        f"areamc area: {layer.path} (layer {layer.layer}, {len(layer)} features)",
-        f"equal-area plane: {plane.label} ({'chosen from the data' if plane.chosen else 'as given'}; "
-        f"measured area distortion {plane.distortion:.1g})",
-        f"{report.run.confidence:.4g} {interval_method(report.run.sampler)}; seed {report.run.seed_entropy}; units {args.units}",
-        "",
-    ]
+    return header_lines("area", f"{layer.path} (layer {layer.layer}, {len(layer)} features)", report.run,
+                        interval_method(report.run.sampler), f"areas in {args.units}")
 
 
 def _footer(args, report, rows) -> list[str]:
@@ -67,17 +69,19 @@ SCREEN = Screen(COLUMNS, COLUMNS + (Column("box_area", area=True),), _header, _f
 
 
 def add_parser(sub) -> None:
-    p = sub.add_parser("area", help="estimate the area of each feature", description=__doc__)
+    p = sub.add_parser("area", help="estimate the area of each feature", description=DESCRIPTION)
     p.add_argument("file", metavar="FILE", help="polygon layer (Shapefile, GeoPackage, GeoJSON, ...)")
     add_layer_options(p)
     add_plane_options(p)
     add_sampling_options(p)
     add_worker_options(p)
-    p.add_argument("--no-exact", action="store_true", help="skip the exact planar and geodesic checks")
-    p.add_argument("--trace", metavar="FILE.csv", help="write the running estimate and interval to this CSV")
+    p.add_argument("--no-exact", action="store_true", help="skip the exact planar and geodesic areas")
+    p.add_argument("--trace", metavar="FILE.csv",
+                   help="also write each feature's running estimate and interval, every --trace-every points, "
+                   "to this CSV file (uniform sampler only)")
     p.add_argument("--trace-every", type=positive_int, default=10_000, metavar="K",
-                   help="points between trace rows (default 10,000)")
-    add_output_options(p)
+                   help="points between rows of the --trace file (default 10,000)")
+    add_output_options(p, progress=True)
     p.set_defaults(run=run)
 
 

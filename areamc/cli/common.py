@@ -19,7 +19,7 @@ from ..parallel import usable_cores
 from ..project import DEFAULT_DENSIFY_M
 from ..samplers import SAMPLERS
 from ..stopping import DEFAULT_MAX_POINTS, DEFAULT_POINTS, POINT_CAP, StopRule
-from ..units import AREA_UNITS, area_factor, parse_distance
+from ..units import AREA_UNITS, DISTANCE_UNITS, area_factor, parse_distance
 from ..vector import vector_driver, write_features
 from ..zones import DEFAULT_VERTICES, MAX_CIRCLE_VERTICES, read_zones
 
@@ -27,6 +27,12 @@ __all__ = [
     "Parser",
     "add_layer_options",
     "layer_options",
+    "input_flags",
+    "distance",
+    "header_lines",
+    "plane_lines",
+    "caveat",
+    "CAUTION",
     "add_plane_options",
     "add_output_options",
     "positive_int",
@@ -58,6 +64,8 @@ FLAGS = {
     "time_s": "--time-limit",
     "encoding": "--input-encoding",
     "workers": "--workers",
+    "crs": "--plane-crs",
+    "radius_unit": "--radius-field-unit",
 }
 _NAMES: list[dict[str, str]] = []
 
@@ -158,13 +166,31 @@ class Parser(argparse.ArgumentParser):
             args, after = args[:cut], args[cut + 1:]
         self._intermixing, self._after_dashes, self._passes = True, after, 0
         try:
-            return super().parse_known_intermixed_args(args, namespace)
+            namespace, extras = super().parse_known_intermixed_args(args, namespace)
         finally:
             self._intermixing, self._after_dashes = False, None
+        if extras:  # named here, so that the message can say which of this command's options was meant
+            self.error(f"unrecognized arguments: {' '.join(extras)}")
+        return namespace, extras
 
     def error(self, message: str):  # noqa: D401 - argparse API
         command = self.prog.removeprefix("areamc").strip()
+        message += self._input_hint(message)
         raise OptionError(f"{command}: {message}" if command else message)
+
+    def _input_hint(self, message: str) -> str:
+        """For ``--layer`` and its kin given to a command with several inputs, the options it has instead."""
+        if not message.startswith("unrecognized arguments:"):
+            return ""
+        own = {flag for action in self._actions for flag in action.option_strings}
+        hints = []
+        for word in message.split(":", 1)[1].split():
+            if not word.startswith("--"):
+                continue
+            instead = sorted(flag for flag in own if flag.endswith("-" + word[2:]) and flag != word)
+            if instead:
+                hints.append(f"{word} names no input here; use {' or '.join(instead)}")
+        return f" ({'; '.join(hints)})" if hints else ""
 
 
 def positive_int(text: str) -> int:
@@ -251,10 +277,16 @@ TOLERANCE_UNITS = {
 }
 
 
-def add_sampling_options(parser: argparse.ArgumentParser, tolerance: str = "area") -> None:
-    """Point budget, precision target, confidence, seed and chunking (shared by estimating commands)."""
+def add_sampling_options(parser: argparse.ArgumentParser, tolerance: str = "area", *, claim: bool = False,
+                         samplers: str = "area") -> None:
+    """Point budget, precision target, confidence, seed and chunking (shared by estimating commands).
+
+    `tolerance` is what an absolute ``--tolerance`` is (:data:`TOLERANCE_UNITS`); `claim` whether
+    the command has ``--claim``; `samplers` which samplers the command takes (``"area"``: all
+    three, ``"uniform"``: only uniform).
+    """
     parser.add_argument("--points", "-n", type=positive_int, metavar="N",
-                        help=f"points per estimate (default {DEFAULT_POINTS:,})")
+                        help=f"points thrown into each estimate's sampling box (default {DEFAULT_POINTS:,})")
     parser.add_argument("--tolerance", "-t", metavar="TOL",
                         help=f"precision target: an interval half-width of at most TOL ({TOLERANCE_UNITS[tolerance]}, "
                         "or a percentage of the estimate such as 0.5%%), reached by a pilot and then a fresh "
@@ -265,13 +297,17 @@ def add_sampling_options(parser: argparse.ArgumentParser, tolerance: str = "area
                         help="confidence level of the intervals, in (0, 1) (default 0.95)")
     parser.add_argument("--seed", "-s", type=non_negative_int, metavar="INT",
                         help="seed for reproducible runs (default: fresh, recorded in the output)")
+    stops = "a --tolerance or --claim run" if claim else "a --tolerance run"
     parser.add_argument("--chunk", type=positive_int, default=DEFAULT_CHUNK, metavar="N",
-                        help=f"points per chunk, bounds memory; fixed-count results do not depend on it, while a "
-                        f"--tolerance run stops only at chunk ends (default {DEFAULT_CHUNK})")
-    parser.add_argument("--sampler", choices=sorted(SAMPLERS), default="uniform",
-                        help="how points are drawn: uniform (default; every command), or for area and "
-                        "coverage sobol (scrambled Sobol points) or stratified (cells wholly inside counted "
-                        "exactly, points only where an edge passes); the last two give Student-t intervals")
+                        help=f"points drawn at a time, which bounds memory; results with --points do not depend "
+                        f"on it, while {stops} stops only at chunk ends (default {DEFAULT_CHUNK:,})")
+    if samplers == "area":
+        sampler_help = ("how points are drawn: uniform (default), sobol (scrambled Sobol points) or stratified "
+                        "(grid cells wholly inside counted exactly, points only where an edge passes); the last "
+                        "two give Student-t intervals")
+    else:
+        sampler_help = "how points are drawn: uniform only in this command (sobol and stratified are refused)"
+    parser.add_argument("--sampler", choices=sorted(SAMPLERS), default="uniform", help=sampler_help)
     parser.add_argument("--point-cap", type=positive_int, default=POINT_CAP, metavar="N",
                         help=f"refuse --points or --max-points above N per estimate (default {POINT_CAP:,}); "
                         "raise it knowingly for very long runs")
@@ -304,27 +340,37 @@ def stop_rule(args, *, scale: float | None = None, below: float | None = None) -
                     time_s=args.time_limit, point_cap=args.point_cap)
 
 
-def add_layer_options(parser: argparse.ArgumentParser, *, prefix: str = "", what: str = "the input file") -> None:
-    """``--layer``, ``--id-field``, ``--input-crs`` and ``--input-encoding`` for one input file.
+def add_layer_options(parser: argparse.ArgumentParser, *, prefix: str = "", what: str = "FILE",
+                      first: bool = True) -> None:
+    """``--[PREFIX]layer``, ``--[PREFIX]id-field``, ``--[PREFIX]input-crs`` and ``--[PREFIX]input-encoding``
+    for the input file `what`.
 
-    Without a `prefix` (the command's first input), also ``--allow-duplicate-ids``,
-    which applies to every input of the command.
+    A command with one input file uses no prefix; a command with several names each input's
+    options after it (``--regions-layer``, ``--zones-layer``, ``--other-layer``).  With `first`,
+    also ``--allow-duplicate-ids``, which applies to every input of the command.
     """
     parser.add_argument(f"--{prefix}layer", metavar="NAME",
-                        help=f"layer of {what}, for files with several layers (default: the first, with a notice)")
-    parser.add_argument(f"--{prefix}id-field", metavar="FIELD", help="attribute that labels features (default: the feature id)")
-    parser.add_argument(f"--{prefix}input-crs", metavar="CRS", help="CRS to assume when the file declares none (EPSG code, PROJ string or WKT)")
+                        help=f"layer of {what} to read, for files with several layers (default: the first, "
+                        "with a notice naming it)")
+    parser.add_argument(f"--{prefix}id-field", metavar="FIELD",
+                        help=f"attribute of {what} whose values label its features in the results "
+                        "(default: the feature id; `areamc inspect` lists the attributes)")
+    parser.add_argument(f"--{prefix}input-crs", metavar="CRS",
+                        help=f"CRS of {what}'s coordinates when the file declares none (EPSG code, PROJ string "
+                        "or WKT); it never overrides a declared CRS")
     parser.add_argument(f"--{prefix}input-encoding", metavar="NAME",
-                        help=f"text encoding of the attributes of {what}, such as latin-1, when the file declares "
+                        help=f"text encoding of {what}'s attributes, such as latin-1, when the file declares "
                         "a wrong one (default: the file's own, e.g. a Shapefile's .cpg)")
-    if not prefix:
+    if first:
         parser.add_argument("--allow-duplicate-ids", action="store_true",
-                            help="accept features that share an id (refused by default); rows then tell them "
-                            "apart by feature_index, their position in the layer")
+                            help="accept features that share an id (refused by default, since such rows cannot "
+                            "be joined back by id); rows then tell them apart by feature_index, their position "
+                            "in the layer")
 
 
 def layer_options(args, prefix: str = "") -> dict:
-    """The :func:`~areamc.load.read_layer` keywords given by the layer options of `prefix` (``""``, ``"zones_"``)."""
+    """The :func:`~areamc.load.read_layer` keywords given by the layer options of `prefix`
+    (``""``, ``"regions_"``, ``"zones_"``, ``"other_"``)."""
     return {
         "layer": getattr(args, f"{prefix}layer"),
         "id_field": getattr(args, f"{prefix}id_field"),
@@ -334,21 +380,90 @@ def layer_options(args, prefix: str = "") -> dict:
     }
 
 
+def input_flags(prefix: str):
+    """The :func:`flags` block naming the layer options of input `prefix` (``"zones_"``) in errors."""
+    dash = prefix.replace("_", "-")
+    return flags(layer=f"--{dash}layer", id_field=f"--{dash}id-field", input_crs=f"--{dash}input-crs",
+                 encoding=f"--{dash}input-encoding")
+
+
+def distance(text: str) -> float:
+    """argparse type: a distance with a unit (``1km``, ``500m``, ``2mi``; a bare number is metres), in metres."""
+    try:
+        return parse_distance(text, param="distance")
+    except OptionError:
+        raise argparse.ArgumentTypeError(f"expected a positive distance with a unit (m, km or mi) such as 1km or "
+                                         f"500m, got {text!r}") from None
+
+
 def add_plane_options(parser: argparse.ArgumentParser) -> None:
-    """``--crs`` and ``--densify``."""
-    parser.add_argument("--crs", metavar="CRS", help="equal-area plane to compute in (EPSG code, PROJ string or WKT); default: chosen from the data's extent")
-    parser.add_argument("--densify", type=positive_float, default=DEFAULT_DENSIFY_M, metavar="METRES",
-                        help=f"longest edge, in metres, before reprojection (default {DEFAULT_DENSIFY_M:g})")
+    """``--plane-crs`` (parameter ``crs``) and ``--densify``."""
+    parser.add_argument("--plane-crs", dest="crs", metavar="CRS",
+                        help="the equal-area plane to compute in (EPSG code, PROJ string or WKT; refused unless "
+                        "its area distortion over the data is below 1e-6). It does not change how the inputs "
+                        "are read or how results are written (default: a Lambert azimuthal equal-area plane "
+                        "centred on the data)")
+    parser.add_argument("--densify", type=distance, default=DEFAULT_DENSIFY_M, metavar="DISTANCE",
+                        help=f"longest edge before reprojection, with a unit: 1km, 500m (a bare number is "
+                        f"metres; default {DEFAULT_DENSIFY_M / 1000:g}km)")
 
 
-def add_output_options(parser: argparse.ArgumentParser) -> None:
-    """``--format``, ``--output``, ``--units``, ``--quiet``, ``--verbose``."""
-    parser.add_argument("--format", choices=FORMATS, help="output format (default: from --output's extension, else table)")
+#: Default area unit of every command's output: districts and zones read best in km2.
+DEFAULT_UNITS = "km2"
+
+
+def add_output_options(parser: argparse.ArgumentParser, *, units: str = "areas", features: bool = True,
+                       progress: bool = False) -> None:
+    """``--format``, ``--output``, ``--units``, ``--verbose``, and ``--quiet`` where a progress bar shows.
+
+    `units` says what ``--units`` applies to (``"areas"``, or ``"density"`` for integrate's mean
+    density); `features` whether ``--output`` also takes .gpkg and .geojson.
+    """
+    kinds = ".csv, .json, or .gpkg/.geojson for the features with their results" if features else ".csv or .json"
+    parser.add_argument("--format", choices=FORMATS,
+                        help="output format: table, csv or json (default: from --output's extension, else table)")
     parser.add_argument("--output", "-o", metavar="PATH",
-                        help="write results here instead of stdout (.csv, .json, or .gpkg/.geojson for features)")
-    parser.add_argument("--units", default="m2", choices=list(AREA_UNITS), help="area unit of the output (default m2)")
-    parser.add_argument("--quiet", "-q", action="store_true", help="no progress bar (warnings are still shown)")
-    parser.add_argument("--verbose", "-v", action="store_true", help="show tracebacks of errors")
+                        help=f"write the results to this file instead of the terminal ({kinds}; any other "
+                        "extension gets the table as text)")
+    applies = ("unit of the mean density (counts per UNIT)" if units == "density"
+               else "unit of the areas in the output")
+    parser.add_argument("--units", default=DEFAULT_UNITS, choices=list(AREA_UNITS),
+                        help=f"{applies}: {', '.join(AREA_UNITS)} (default {DEFAULT_UNITS})")
+    parser.add_argument("--quiet", "-q", action="store_true",
+                        help=("no progress bar on the terminal and " if progress else "")
+                        + "no notes (such as which layer of a file was read); warnings are still shown")
+    parser.add_argument("--verbose", "-v", action="store_true", help="show the traceback of an error")
+
+
+def plane_lines(plane) -> list[str]:
+    """The header lines that name the equal-area plane (its label on a line of its own)."""
+    how = "chosen from the data" if plane.chosen else "as given by --plane-crs"
+    return [f"plane ({how}; area distortion {plane.distortion:.1g} over the data):", f"  {plane.label}"]
+
+
+def header_lines(command: str, sources: str, run, method: str, units: str) -> list[str]:
+    """The header every command's table starts with: what was read, the plane, the interval method,
+    the seed and the units (one copy for all commands)."""
+    return [f"areamc {command}: {sources}", *plane_lines(run.plane),
+            f"{run.confidence:.4g} {method}; seed {run.seed_entropy}; {units}", ""]
+
+
+#: The caution carried by results that could inform decisions on safety (README, "Caution").
+CAUTION = ("estimates do not replace surveys, regulatory determinations or licensed professional practice, "
+           "and local codes apply")
+
+
+def caveat(*, reach: bool = False, claim: bool = False) -> str | None:
+    """The one-line caution for results with reach circles or claim verdicts, else None."""
+    parts = []
+    if reach:
+        parts.append("reach circles are straight-line (geodesic) distances, not travel routes or times")
+    if claim:
+        parts.append("each verdict is a statistical statement about these polygons, not a compliance "
+                     "determination")
+    if not parts:
+        return None
+    return "caution: " + "; ".join(parts + [CAUTION]) + "."
 
 
 def run_metadata(args, **inputs) -> dict:
@@ -379,22 +494,25 @@ def output_format(args) -> str:
 
 def add_zone_options(parser: argparse.ArgumentParser) -> None:
     """``--radius``, ``--radius-field``, ``--circle-vertices`` for zones given as points."""
-    parser.add_argument("--radius", metavar="DISTANCE", help="reach of every facility point, with a unit: 5km, 800m, 3mi")
-    parser.add_argument("--radius-field", metavar="FIELD", help="attribute with each facility point's reach in metres")
+    parser.add_argument("--radius", metavar="DISTANCE",
+                        help="reach of every facility point in the zone file, with a unit: 5km, 800m, 3mi (a bare "
+                        "number is metres); each point becomes a geodesic circle of that straight-line radius")
+    parser.add_argument("--radius-field", metavar="FIELD",
+                        help="attribute of the zone file holding each facility point's reach, in --radius-field-unit")
+    parser.add_argument("--radius-field-unit", choices=sorted(DISTANCE_UNITS), default="m", dest="radius_unit",
+                        help="unit of the --radius-field values: m, km or mi (default m)")
     parser.add_argument("--circle-vertices", type=positive_int, default=DEFAULT_VERTICES, metavar="N",
                         help=f"vertices of each geodesic circle (default {DEFAULT_VERTICES})")
     parser.add_argument("--vertex-cap", type=positive_int, default=MAX_CIRCLE_VERTICES, metavar="N",
                         help=f"refuse --circle-vertices above N (default {MAX_CIRCLE_VERTICES:,}); raise it knowingly")
 
 
-def zone_layer(args, path: str, layer: str | None, id_field: str | None, input_crs: str | None,
-               encoding: str | None = None):
-    """Read a zone layer with the zone options of `args` (points become geodesic circles)."""
+def zone_layer(args, path: str, **options):
+    """Read a zone layer with the zone options of `args` (points become geodesic circles) and the
+    layer `options` of :func:`layer_options`."""
     radius = parse_distance(args.radius) if args.radius is not None else None
-    return read_zones(path, layer=layer, id_field=id_field, input_crs=input_crs, radius_m=radius,
-                      radius_field=args.radius_field, vertices=args.circle_vertices, vertex_cap=args.vertex_cap,
-                      encoding=encoding,
-                      allow_duplicate_ids=getattr(args, "allow_duplicate_ids", False))
+    return read_zones(path, radius_m=radius, radius_field=args.radius_field, vertices=args.circle_vertices,
+                      vertex_cap=args.vertex_cap, radius_unit=args.radius_unit, **options)
 
 
 def show(args, screen: Screen, report, rows, metadata, *, inputs=None, features=None, columns=None,
@@ -417,8 +535,8 @@ def with_feature_index(args, columns):
             last_id = n
     if last_id is None:
         return columns
-    extra = [Column("feature_index", "index")] if out[last_id].field == "id" else [
-        Column("feature_index_a", "index_a"), Column("feature_index_b", "index_b")]
+    extra = [Column("feature_index")] if out[last_id].field == "id" else [
+        Column("feature_index_a"), Column("feature_index_b")]
     return tuple(out[:last_id + 1] + extra + out[last_id + 1:])
 
 
@@ -436,11 +554,13 @@ def emit(args, rows, columns, metadata, header=(), footer=(), features=None, fie
         if features is None:
             raise OptionError(f"--output {args.output}: this command writes no features; use .csv or .json")
         geoms, crs, layer = features
-        write_features(args.output, geoms, convert_rows(rows, fields, args.units), crs, layer, batch=batch)
+        write_features(args.output, geoms, convert_rows(rows, fields, args.units), crs, layer, batch=batch,
+                       description=metadata.get("caveat"))
         return
     if output_format(args) != "table":
         columns = fields
-    text = render(rows, columns, fmt=output_format(args), units=args.units, metadata=metadata, header=header, footer=footer)
+    text = render(rows, columns, fmt=output_format(args), units=args.units, metadata=metadata, header=header,
+                  footer=footer, fields=fields)
     if args.output:
         write_text(text, args.output, batch=batch)
     else:

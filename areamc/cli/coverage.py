@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
+
 import argparse
 
 from ..coverage import COMPUTED, estimate_coverage
 from ..density import build_density
 from ..errors import OptionError
-from ..output import Column
+from ..output import Column, table, wrap
 from ..load import read_layer
 from ..samplers import interval_method
 from ..project import project_layers
@@ -23,9 +24,12 @@ from .common import (
     add_zone_options,
     check_outputs,
     density_file,
+    caveat,
     flag_line,
-    flags,
+    header_lines,
+    input_flags,
     layer_options,
+    output_format,
     positive_float,
     run_metadata,
     show,
@@ -34,34 +38,61 @@ from .common import (
     zone_layer,
 )
 
+DESCRIPTION = """\
+Estimate, for every region in REGIONS, the share of its area covered by at least k zones of ZONES
+(k = 1 unless --at-least says otherwise), with a standard error and confidence interval and, as a
+check, the exact share (shapely). --claim tests each row against a stated share; --density adds
+the share of the region's population (or any count) that lives in the covered area. Facility
+points become zones with --radius or --radius-field: circles of a straight-line reach."""
+
+def _below_k_error(row: dict):
+    """Standard error of ``area_below_k``: the share's, times the region's area (same unit)."""
+    if row.get("std_error") is None or row.get("region_area") is None:
+        return None
+    return row["std_error"] * row["region_area"]
+
+
 COLUMNS = (
     Column("id"),
     Column("k"),
-    Column("share", spec=".4f"),
-    Column("stderr", spec=".4f"),
-    Column("ci_low", spec=".4f"),
-    Column("ci_high", spec=".4f"),
-    Column("uncovered", area=True),
-    Column("points"),
-    Column("exact_share", spec=".4f"),
+    Column("share", spec=".4f", error="std_error"),
+    Column("std_error", spec=".4f", error="std_error"),
+    Column("ci_low", spec=".4f", error="std_error"),
+    Column("ci_high", spec=".4f", error="std_error"),
+    Column("area_below_k", area=True, error=_below_k_error),
+    Column("exact_share", spec=".4f", error="std_error"),
     Column("z", spec=".2f"),
-    Column("flagged", "flag"),
+    Column("flagged"),
 )
+#: Columns shown only with ``--wide`` (every field is in CSV and JSON anyway).
+WIDE_COLUMNS = (Column("region_points"), Column("hits"))
+#: The population table: headings without the prefix ``population_`` are its fields.
+POPULATION_PREFIX = "population_"
+_POP = "population_share_std_error"
 POPULATION_COLUMNS = (
-    Column("population", spec=",.0f"),
-    Column("covered_population", "covered_pop", spec=",.0f"),
-    Column("population_share", "pop_share", spec=".4f"),
-    Column("population_share_ci_low", "ci_low", spec=".4f"),
-    Column("population_share_ci_high", "ci_high", spec=".4f"),
-    Column("exact_population_share", "exact", spec=".4f"),
+    Column("id"),
+    Column("k"),
+    Column("population_total", "total", spec=",.0f"),
+    Column("population_covered", "covered", spec=",.0f"),
+    Column("population_share", "share", spec=".4f", error=_POP),
+    Column("population_share_std_error", "share_std_error", spec=".4f", error=_POP),
+    Column("population_share_ci_low", "share_ci_low", spec=".4f", error=_POP),
+    Column("population_share_ci_high", "share_ci_high", spec=".4f", error=_POP),
+    Column("population_exact_share", "exact_share", spec=".4f", error=_POP),
 )
-CLAIM_COLUMNS = (Column("claim", spec=".4g"), Column("verdict"))
-ALL_FIELDS = COLUMNS + (
+ALL_FIELDS = COLUMNS + WIDE_COLUMNS + (
     Column("region_area", area=True),
-    Column("covered", area=True),
-    Column("uncovered_ci_low", area=True),
-    Column("uncovered_ci_high", area=True),
+    Column("covered_area", area=True),
+    Column("area_below_k_ci_low", area=True),
+    Column("area_below_k_ci_high", area=True),
 )  # with the table's columns: every field that holds an area, for unit conversion
+
+#: What each verdict token means (the table legend spells them out).
+VERDICTS = {
+    MEETS: "the confidence sequence lies wholly at or above the claim",
+    FALLS_SHORT: "it lies wholly below the claim",
+    UNDECIDED: "it still straddles the claim when the points run out",
+}
 
 
 #: Exit status of ``--fail-on-shortfall`` when no row falls short but some verdict is undecided.
@@ -76,37 +107,47 @@ def _claim(text: str) -> float:
 
 
 def add_parser(sub) -> None:
-    p = sub.add_parser("coverage", help="estimate the share of each region covered by zones", description=__doc__)
+    p = sub.add_parser("coverage", help="estimate the share of each region covered by zones",
+                       description=DESCRIPTION)
     p.add_argument("regions", metavar="REGIONS", help="polygon layer of regions (districts)")
     p.add_argument("zones", metavar="ZONES", help="zone layer (polygons, or points with --radius)")
-    add_layer_options(p, what="REGIONS")
-    add_layer_options(p, prefix="zones-", what="ZONES")
+    add_layer_options(p, prefix="regions-", what="REGIONS")
+    add_layer_options(p, prefix="zones-", what="ZONES", first=False)
     add_zone_options(p)
     add_plane_options(p)
-    add_sampling_options(p, tolerance="share")
+    add_sampling_options(p, tolerance="share", claim=True)
     add_worker_options(p)
     p.add_argument("--at-least", type=whole_number(1), action="append", metavar="K",
                    help="report the share covered by at least K zones; repeat for several (default 1)")
     p.add_argument("--claim", type=_claim, metavar="SHARE",
-                   help="check the claim that each share is at least SHARE, in (0, 1]")
+                   help="test, row by row, the claim that the covered share is at least SHARE, in (0, 1]; "
+                   "sampling stops once every row's verdict is clear")
     p.add_argument("--fail-on-shortfall", action="store_true",
                    help=f"exit status 1 when any row falls short of --claim, or {EXIT_UNDECIDED} when none falls short but "
                    "some verdict is still undecided when the points run out (raise --max-points or --points)")
     add_density_options(p, required=False)
     p.add_argument("--no-exact", action="store_true", help="skip shapely's exact shares")
     p.add_argument("--exact-budget", type=positive_float, default=10.0, metavar="SECONDS",
-                   help="time allowed per region for exact shares at k >= 2 (default 10)")
+                   help="time allowed per region for the exact shares at k >= 2 (default 10)")
+    p.add_argument("--wide", action="store_true",
+                   help="also show each row's region_points (points that fell in the region) and hits")
     add_output_options(p)
     p.set_defaults(run=run)
 
 
-def _tally(what: str, verdicts, claim: float, confidence: float) -> str:
-    decided = [v for v in verdicts if v is not None]
-    if not decided:
-        return f"{what} >= {claim:g}: no verdict (needs importance sampling)"
-    counts = {v: decided.count(v) for v in (MEETS, FALLS_SHORT, UNDECIDED)}
-    return (f"{what} >= {claim:g}: {counts[MEETS]} meet, {counts[FALLS_SHORT]} fall short, "
-            f"{counts[UNDECIDED]} undecided at confidence {confidence:g}")
+def _tallies(what: str, rows, verdict_of, claim: float, ks) -> list[str]:
+    """One tally line per k: how many rows meet the claim, fall short, or are undecided."""
+    lines = []
+    for k in ks:
+        verdicts = [verdict_of(r) for r in rows if r.k == k]
+        decided = [v for v in verdicts if v is not None]
+        if not decided:
+            lines.append(f"claim {what} >= {claim:g} at k = {k}: no verdict (needs importance sampling)")
+            continue
+        counts = {v: decided.count(v) for v in (MEETS, FALLS_SHORT, UNDECIDED)}
+        lines.append(f"claim {what} >= {claim:g} at k = {k}: {counts[MEETS]} meet, {counts[FALLS_SHORT]} fall short, "
+                     f"{counts[UNDECIDED]} undecided")
+    return lines
 
 
 def _header(args, report, inputs) -> list[str]:
@@ -114,32 +155,49 @@ def _header(args, report, inputs) -> list[str]:
     run = report.run
     method = ("confidence sequences (valid under early stopping)" if args.claim is not None
               else interval_method(run.sampler))
+    sources = (f"{regions.path} (layer {regions.layer}, {len(regions)} regions) by {zones.path} "
+               f"(layer {zones.layer}, {len(zones)} zones)")
+    lines = header_lines("coverage", sources, run, method, f"areas in {args.units}")
     if spec is not None:
-        method += f"; population from {spec.kind} {args.density}"
-    return [
-        f"areamc coverage: {regions.path} ({regions.layer}, {len(regions)} regions) by {zones.path} ({zones.layer}, {len(zones)} zones)",
-        f"equal-area plane: {run.plane.label}; {run.confidence:.4g} {method}; seed {run.seed_entropy}; units {args.units}",
-        "",
-    ]
+        lines.insert(-1, f"population from {spec.kind} {args.density}")
+    return lines
 
 
 def _footer(args, report, rows) -> list[str]:
-    footer = [""]
+    footer = []
     if args.claim is not None:
-        footer.append(_tally("claim: area share", [r.verdict for r in report.rows], args.claim, report.run.confidence))
+        footer += ["", *wrap("verdict: " + "; ".join(f"{token} = {text}" for token, text in VERDICTS.items()))]
+    if args.density is not None and output_format(args) == "table":
+        population = [r.to_dict() for r in report.rows]
+        columns = POPULATION_COLUMNS
+        if args.claim is not None:  # as in the area table, the verdict takes the standard error's place
+            columns = tuple(c for c in columns if c.field != "population_share_std_error")
+            columns += (Column("population_verdict", "verdict"),)
+        footer += ["", "population (or other count) of each region and the share of it covered by at least k zones"]
+        footer.append(table(population, columns, args.units, prefix=POPULATION_PREFIX).rstrip("\n"))
+    if args.claim is not None:
+        footer.append("")
+        footer += _tallies("area share", report.rows, lambda r: r.verdict, args.claim, report.ks)
         if args.density is not None:
-            footer.append(_tally("claim: population share",
-                                 [r.population.verdict if r.population else None for r in report.rows],
-                                 args.claim, report.run.confidence))
+            footer += _tallies("population share", report.rows,
+                               lambda r: r.population.verdict if r.population else None, args.claim, report.ks)
+        footer.append(f"(each row is judged on its own at confidence {report.run.confidence:g}, not jointly)")
     if not args.no_exact:
-        footer.append(flag_line(report.rows, "share"))
+        footer += ["", flag_line(report.rows, "share")]
     not_done = sorted({rid for rid, s in report.exact_status.items() if s != COMPUTED})
     if not_done and not args.no_exact:
-        footer.append(f"exact shares for k >= 2 not computed within --exact-budget for: {', '.join(not_done)}")
-    return footer
+        footer += wrap(f"exact shares for k >= 2 not computed within --exact-budget for: {', '.join(not_done)}")
+    note = _caveat(args)
+    return footer + (["", *wrap(note)] if note else [])
 
 
-SCREEN = Screen(COLUMNS, ALL_FIELDS + CLAIM_COLUMNS + POPULATION_COLUMNS, _header, _footer)
+def _caveat(args) -> str | None:
+    zones = getattr(args, "_zones", None)
+    return caveat(reach=bool(zones is not None and zones.reach_circles), claim=args.claim is not None)
+
+
+CLAIM_FIELDS = (Column("claim"), Column("verdict"))
+SCREEN = Screen(COLUMNS, ALL_FIELDS + CLAIM_FIELDS + POPULATION_COLUMNS, _header, _footer)
 
 
 def run(args) -> int:
@@ -147,11 +205,11 @@ def run(args) -> int:
         raise OptionError("--fail-on-shortfall needs --claim")
     stop = stop_rule(args, scale=1.0, below=1.0)  # an absolute tolerance is a share
     check_outputs(args, [args.regions, args.zones, density_file(args)])
-    regions = read_layer(args.regions, **layer_options(args))
-    with flags(layer="--zones-layer", id_field="--zones-id-field", input_crs="--zones-input-crs",
-               encoding="--zones-input-encoding"):
-        zones = zone_layer(args, args.zones, args.zones_layer, args.zones_id_field, args.zones_input_crs,
-                           encoding=args.zones_input_encoding)
+    with input_flags("regions_"):
+        regions = read_layer(args.regions, **layer_options(args, "regions_"))
+    with input_flags("zones_"):
+        zones = zone_layer(args, args.zones, **layer_options(args, "zones_"))
+    args._zones = zones
     spec = read_density_option(args)
     layers = [regions, zones] + ([spec.blocks] if spec is not None and spec.blocks is not None else [])
     projected = project_layers(layers, crs=args.crs, densify_m=args.densify)
@@ -183,13 +241,13 @@ def run(args) -> int:
         **run_metadata(args, inputs=[regions, zones]),
         **report.metadata(),
         "density": density_metadata(args, spec),
+        "caveat": _caveat(args),
     }
-    columns = COLUMNS + (CLAIM_COLUMNS if args.claim is not None else ())
-    if density is not None:
-        # a narrower area part, so the population columns fit beside it
-        columns = tuple(c for c in COLUMNS if c.field in ("id", "k", "share", "ci_low", "ci_high", "exact_share"))
-        columns += ((Column("verdict"),) if args.claim is not None else ()) + POPULATION_COLUMNS
-        columns += (Column("population_verdict", "pop_verdict"),) if args.claim is not None else ()
+    columns = COLUMNS
+    if args.claim is not None:  # the claim itself is in the header and footer; the table keeps to 100 columns
+        columns = tuple(c for c in COLUMNS if c.field != "std_error") + (Column("verdict"),)
+    if args.wide:
+        columns += WIDE_COLUMNS
     geoms = [g for g in regions.geometries for _ in report.ks] if args.output else None  # rows: region by region, k by k
     show(args, SCREEN, report, rows, metadata, inputs=(regions, zones, spec), columns=columns,
          features=(geoms, regions.crs, "coverage"))

@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import argparse
+import warnings
 
-from ..density import RASTER_VALUES, DensitySpec, read_density
+from ..density import RASTER_VALUES, DensitySpec, parse_origin, read_density
+from ..errors import AreamcWarning
 from .common import flags
 
 __all__ = ["add_density_options", "read_density_option", "density_metadata"]
@@ -12,10 +14,15 @@ __all__ = ["add_density_options", "read_density_option", "density_metadata"]
 
 def add_density_options(parser: argparse.ArgumentParser, *, required: bool) -> None:
     parser.add_argument("--density", required=required, metavar="SOURCE",
-                        help="a block layer with --count-field, a raster (GeoTIFF), or an expression in "
-                        "x, y (plane metres) or lon, lat (degrees) giving a density per m²")
+                        help="a block layer with --count-field, a raster (GeoTIFF), or an expression giving "
+                        "a density per m² in lon, lat (WGS84 degrees), east, north (metres east and north of "
+                        "--origin) or x, y (metres on the computation plane from its origin, which moves with the "
+                        "data unless --plane-crs names the plane)")
     parser.add_argument("--density-kind", choices=("auto", "blocks", "raster", "expression"), default="auto",
                         help="how to read SOURCE (default: a raster by extension, a vector file, else an expression)")
+    parser.add_argument("--origin", metavar="LON,LAT",
+                        help="the point (WGS84 degrees) an expression's east, north are measured from, in metres "
+                        "on an equal-area plane centred there")
     parser.add_argument("--density-layer", metavar="NAME", help="layer of the block file")
     parser.add_argument("--count-field", metavar="FIELD", help="attribute of each block holding its count (e.g. population)")
     parser.add_argument("--raster-values", choices=list(RASTER_VALUES), default="count",
@@ -28,10 +35,15 @@ def add_density_options(parser: argparse.ArgumentParser, *, required: bool) -> N
 def read_density_option(args) -> DensitySpec | None:
     """Read the density source named by ``--density`` (blocks are loaded here, to be projected)."""
     if args.density is None:
+        if args.origin is not None:
+            parse_origin(args.origin)  # strict even when unused
+            warnings.warn(AreamcWarning("{param} is not used: no density was named (it is the point a density "
+                                        "expression's east, north are measured from)", param="origin"), stacklevel=2)
         return None
     with flags(layer="--density-layer", id_field="--density-id-field", input_crs="--density-input-crs"):
         return read_density(args.density, kind=args.density_kind, layer=args.density_layer,
-                            count_field=args.count_field, values=args.raster_values, band=args.band)
+                            count_field=args.count_field, values=args.raster_values, band=args.band,
+                            origin=args.origin)
 
 
 def density_metadata(args, spec: DensitySpec | None) -> dict | None:

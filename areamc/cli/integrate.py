@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+
 from ..density import build_density
 from ..integrate import integrate_density
 from ..load import read_layer
@@ -17,6 +18,8 @@ from .common import (
     check_outputs,
     density_file,
     flag_line,
+    header_lines,
+    input_flags,
     layer_options,
     run_metadata,
     show,
@@ -24,44 +27,60 @@ from .common import (
 )
 from .density_options import add_density_options, density_metadata, read_density_option
 
+DESCRIPTION = """\
+Estimate, for every region in REGIONS, the total of a density over its area: a population from
+census blocks (--density BLOCKS --count-field FIELD), from a raster of counts or densities, or
+from an expression in lon, lat (degrees) or in metres east and north of a named --origin. Each row
+gives the total with its standard error and confidence interval and, where the source allows, the
+exact total as a check (areal weighting for blocks, cell fractions for rasters)."""
+
+def _density_error(row: dict):
+    """Standard error of ``mean_density``: the total's over the region's area (same unit)."""
+    if row.get("std_error") is None or not row.get("region_area"):
+        return None
+    return row["std_error"] / row["region_area"]
+
+
 COLUMNS = (
     Column("id"),
-    Column("estimate", "total"),
-    Column("stderr"),
-    Column("ci_low"),
-    Column("ci_high"),
-    Column("mean_density", "mean_density", per_area=True),
-    Column("points"),
-    Column("method"),
-    Column("exact"),
+    Column("estimate", error="std_error"),
+    Column("std_error", error="std_error"),
+    Column("ci_low", error="std_error"),
+    Column("ci_high", error="std_error"),
+    Column("mean_density", per_area=True, error=_density_error),
+    Column("exact", error="std_error"),
     Column("z", spec=".2f"),
-    Column("flagged", "flag"),
+    Column("flagged"),
 )
-ALL_FIELDS = COLUMNS + (Column("region_area", area=True),)
+#: Columns shown only with ``--wide``.
+WIDE_COLUMNS = (Column("points"), Column("method"))
+ALL_FIELDS = COLUMNS + WIDE_COLUMNS + (Column("region_area", area=True),)
 
 
 def add_parser(sub) -> None:
-    p = sub.add_parser("integrate", help="integrate a density (e.g. population) over each region", description=__doc__)
+    p = sub.add_parser("integrate", help="integrate a density (e.g. population) over each region",
+                       description=DESCRIPTION)
     p.add_argument("regions", metavar="REGIONS", help="polygon layer of regions")
-    add_layer_options(p, what="REGIONS")
+    add_layer_options(p, prefix="regions-", what="REGIONS")
     add_density_options(p, required=True)
     add_plane_options(p)
-    add_sampling_options(p, tolerance="count")
+    add_sampling_options(p, tolerance="count", samplers="uniform")
     add_worker_options(p)
-    p.add_argument("--no-exact", action="store_true", help="skip the exact areal-weighting / cell-fraction totals")
-    add_output_options(p)
+    p.add_argument("--no-exact", action="store_true", help="skip the exact totals (areal weighting, cell fractions)")
+    p.add_argument("--wide", action="store_true",
+                   help="also show each row's points and sampling method")
+    add_output_options(p, units="density")
     p.set_defaults(run=run)
 
 
 def _header(args, report, inputs) -> list[str]:
     regions, spec = inputs
-    run = report.run
-    return [
-        f"areamc integrate: {regions.path} ({regions.layer}, {len(regions)} regions), density {spec.kind} {args.density}",
-        f"equal-area plane: {run.plane.label}; {run.confidence:.4g} intervals; seed {run.seed_entropy}; "
-        f"mean density per {args.units}",
-        "",
-    ]
+    sources = f"{regions.path} (layer {regions.layer}, {len(regions)} regions), density {spec.kind} {args.density}"
+    lines = header_lines("integrate", sources, report.run, "intervals", f"mean_density per {args.units}")
+    methods = sorted({r.method for r in report.rows})
+    if methods and not args.wide:
+        lines.insert(-1, f"sampling method: {', '.join(methods)} (docs/methods.md; --wide shows it per row)")
+    return lines
 
 
 def _footer(args, report, rows) -> list[str]:
@@ -78,7 +97,8 @@ SCREEN = Screen(COLUMNS, ALL_FIELDS, _header, _footer)
 def run(args) -> int:
     stop = stop_rule(args, scale=1.0)  # an absolute tolerance is a count (e.g. persons)
     check_outputs(args, [args.regions, density_file(args)])
-    regions = read_layer(args.regions, **layer_options(args))
+    with input_flags("regions_"):
+        regions = read_layer(args.regions, **layer_options(args, "regions_"))
     spec = read_density_option(args)
     layers = [regions] + ([spec.blocks] if spec.blocks is not None else [])
     projected = project_layers(layers, crs=args.crs, densify_m=args.densify)
@@ -91,12 +111,14 @@ def run(args) -> int:
         if hasattr(source, "close"):
             source.close()
     rows = [r.to_dict() for r in report.rows]
+    columns = COLUMNS + (WIDE_COLUMNS if args.wide else ())
     metadata = {
         **run_metadata(args, input=regions),
         "density": density_metadata(args, spec),
         **report.metadata(),
-        "note": "totals are in the density's count unit; mean_density is per unit of --units",
+        "mean_density_unit": f"count per {args.units}",
     }
     geoms = list(regions.geometries) if args.output else None
-    show(args, SCREEN, report, rows, metadata, inputs=(regions, spec), features=(geoms, regions.crs, "totals"))
+    show(args, SCREEN, report, rows, metadata, inputs=(regions, spec), features=(geoms, regions.crs, "totals"),
+         columns=columns)
     return 0

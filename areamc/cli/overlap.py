@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from ..output import Column, convert_rows, table
+
+from ..output import Column, convert_rows, table, wrap
 from ..overlap import AUTO, PAIR_SAMPLINGS, SHARED, estimate_overlaps, overlap_geometries
 from ..project import project_layers
 from .common import (
@@ -14,8 +15,11 @@ from .common import (
     add_worker_options,
     add_zone_options,
     check_outputs,
+    caveat,
     flag_line,
-    flags,
+    header_lines,
+    input_flags,
+    layer_options,
     output_format,
     positive_float,
     run_metadata,
@@ -24,47 +28,66 @@ from .common import (
     zone_layer,
 )
 
+DESCRIPTION = """\
+Estimate, for every pair of zones in ZONES whose outlines meet, the area they share, with its
+standard error and confidence interval and, as a check, the exact intersection area (shapely).
+With a second file OTHER, only pairs of one zone from each file are reported. Below the pairs,
+the multiplicity profile gives the area covered by exactly k and by at least k zones. Facility
+points become zones with --radius or --radius-field."""
+
+def _share_error(side: str):
+    """The standard error of ``share_a`` or ``share_b``: the overlap's over the zone's exact area."""
+    def error(row: dict):
+        estimate, share = row.get("estimate"), row.get(f"share_{side}")
+        if not estimate or share is None or row.get("std_error") is None:
+            return None
+        return row["std_error"] * share / estimate
+    return error
+
+
 COLUMNS = (
     Column("id_a"),
     Column("id_b"),
-    Column("estimate", area=True),
-    Column("stderr", area=True),
-    Column("ci_low", area=True),
-    Column("ci_high", area=True),
-    Column("share_a", spec=".4f"),
-    Column("share_b", spec=".4f"),
-    Column("exact_planar", area=True),
+    Column("estimate", area=True, error="std_error"),
+    Column("std_error", area=True, error="std_error"),
+    Column("ci_low", area=True, error="std_error"),
+    Column("ci_high", area=True, error="std_error"),
+    Column("share_a", spec=".4f", error=_share_error("a")),
+    Column("share_b", spec=".4f", error=_share_error("b")),
+    Column("exact_planar", area=True, error="std_error"),
     Column("z", spec=".2f"),
-    Column("flagged", "flag"),
+    Column("flagged"),
 )
+#: The profile table: headings without the prefix ``area_at_least_`` are that area's fields.
+PROFILE_PREFIX = "area_at_least_"
+_AT_LEAST = "area_at_least_std_error"
 PROFILE_COLUMNS = (
     Column("k"),
-    Column("area_exactly", "exactly", area=True),
-    Column("area_exactly_ci_low", "ci_low", area=True),
-    Column("area_exactly_ci_high", "ci_high", area=True),
-    Column("exact_area_exactly", "exact", area=True),
-    Column("area_at_least", "at_least", area=True),
-    Column("area_at_least_ci_low", "ci_low", area=True),
-    Column("area_at_least_ci_high", "ci_high", area=True),
-    Column("exact_area_at_least", "exact", area=True),
+    Column("area_exactly", area=True, error=_AT_LEAST),
+    Column("area_at_least", area=True, error=_AT_LEAST),
+    Column("area_at_least_std_error", "std_error", area=True, error=_AT_LEAST),
+    Column("area_at_least_ci_low", "ci_low", area=True, error=_AT_LEAST),
+    Column("area_at_least_ci_high", "ci_high", area=True, error=_AT_LEAST),
+    Column("area_at_least_exact", "exact", area=True, error=_AT_LEAST),
     Column("z", spec=".2f"),
 )
-PROFILE_FIELDS = PROFILE_COLUMNS + (Column("area_at_least_stderr", area=True),)
+PROFILE_FIELDS = PROFILE_COLUMNS + (
+    Column("area_exactly_ci_low", area=True),
+    Column("area_exactly_ci_high", area=True),
+    Column("area_exactly_exact", area=True),
+)
 
 
 def _header(args, report, layers) -> list[str]:
-    what = "cross pairs" if args.other else "pairs"
-    run = report.run
-    return [
-        f"areamc overlap: {' x '.join(f'{lay.path} ({lay.layer}, {len(lay)} zones)' for lay in layers)}",
-        f"equal-area plane: {run.plane.label}; {run.confidence:.4g} Wilson intervals; seed {run.seed_entropy}; "
-        f"units {args.units}",
-        f"{len(report.rows)} overlapping {what} of {report.candidates} whose geometries meet"
-        + (f"; counted in one shared sample of {report.rows[0].points:,} points over "
-           + ("the two layers' common box" if args.other else "the layer's box")
-           if report.pair_sampling == SHARED and report.rows else ""),
-        "",
-    ]
+    what = "pairs of one zone from each file" if args.other else "pairs of zones"
+    sources = " and ".join(f"{lay.path} (layer {lay.layer}, {len(lay)} zones)" for lay in layers)
+    lines = header_lines("overlap", sources, report.run, "Wilson intervals", f"areas in {args.units}")
+    listed = f"{len(report.rows)} of them overlap" + (" above --min-share" if args.min_share else "")
+    lines.insert(-1, f"{report.candidates} {what} have outlines that meet; {listed} and are listed")
+    if report.pair_sampling == SHARED and report.rows:
+        box = "the two layers' common box" if args.other else "the layer's box"
+        lines.insert(-1, f"every pair counted in one shared sample of {report.rows[0].points:,} points over {box}")
+    return lines
 
 
 def _footer(args, report, rows) -> list[str]:
@@ -75,30 +98,34 @@ def _footer(args, report, rows) -> list[str]:
         footer += ["", flag_line(report.rows, "intersection area")]
     if report.multiplicity and output_format(args) == "table":
         profile = [m.to_dict() for m in report.multiplicity]
-        footer += ["", f"multiplicity profile (area covered by exactly k / at least k zones; exact: {report.exact_profile})"]
-        footer.append(table(profile, PROFILE_COLUMNS, args.units).rstrip("\n"))
-    return footer
+        footer += ["", *wrap(f"multiplicity profile: area covered by exactly k and by at least k zones, in "
+                             f"{args.units} (exact areas: {report.exact_profile}; z compares area_at_least with "
+                             "its exact area)")]
+        footer.append(table(profile, PROFILE_COLUMNS, args.units, prefix=PROFILE_PREFIX).rstrip("\n"))
+    note = caveat(reach=any(lay.reach_circles for lay in report_layers(args)))
+    return footer + (["", *wrap(note)] if note else [])
 
 
 SCREEN = Screen(COLUMNS, COLUMNS + (Column("box_area", area=True),), _header, _footer)
 
 
 def add_parser(sub) -> None:
-    p = sub.add_parser("overlap", help="estimate how much zones overlap", description=__doc__)
+    p = sub.add_parser("overlap", help="estimate how much zones overlap", description=DESCRIPTION)
     p.add_argument("zones", metavar="ZONES", help="zone layer (polygons, or points with --radius)")
-    p.add_argument("other", metavar="OTHER", nargs="?", help="second zone layer: only cross pairs are reported")
-    add_layer_options(p, what="ZONES")
-    add_layer_options(p, prefix="other-", what="OTHER")
+    p.add_argument("other", metavar="OTHER", nargs="?",
+                   help="a second zone layer: only pairs of one zone from each file are reported")
+    add_layer_options(p, prefix="zones-", what="ZONES")
+    add_layer_options(p, prefix="other-", what="OTHER", first=False)
     add_zone_options(p)
     add_plane_options(p)
     add_sampling_options(p)
     add_worker_options(p)
     p.add_argument("--min-share", type=float, default=0.0, metavar="SHARE",
-                   help="omit pairs whose overlap is below this share of both zones (default 0)")
+                   help="leave out pairs whose overlap is below this share of both zones' areas (default 0)")
     p.add_argument("--no-exact", action="store_true", help="skip shapely's exact intersection areas")
     p.add_argument("--no-profile", action="store_true", help="skip the multiplicity profile")
     p.add_argument("--exact-budget", type=positive_float, default=10.0, metavar="SECONDS",
-                   help="time allowed for the exact multiplicity profile (default 10)")
+                   help="time allowed for the exact areas of the multiplicity profile (default 10)")
     p.add_argument("--pair-sampling", choices=PAIR_SAMPLINGS, default=AUTO,
                    help="shared: one sample over the layer's box counts every pair and the profile (--points is "
                    "that sample's size; pays off where zones overlap densely); per-pair: each pair sampled in its "
@@ -108,16 +135,21 @@ def add_parser(sub) -> None:
     p.set_defaults(run=run)
 
 
+def report_layers(args) -> tuple:
+    """The zone layers the run read (set by :func:`run`, for the footer's caution)."""
+    return getattr(args, "_layers", ())
+
+
 def run(args) -> int:
     stop = stop_rule(args)
     inputs = [args.zones] + ([args.other] if args.other else [])
     check_outputs(args, inputs)
-    layers = [zone_layer(args, args.zones, args.layer, args.id_field, args.input_crs, encoding=args.input_encoding)]
+    with input_flags("zones_"):
+        layers = [zone_layer(args, args.zones, **layer_options(args, "zones_"))]
     if args.other:
-        with flags(layer="--other-layer", id_field="--other-id-field", input_crs="--other-input-crs",
-                   encoding="--other-input-encoding"):
-            layers.append(zone_layer(args, args.other, args.other_layer, args.other_id_field, args.other_input_crs,
-                                     encoding=args.other_input_encoding))
+        with input_flags("other_"):
+            layers.append(zone_layer(args, args.other, **layer_options(args, "other_")))
+    args._layers = tuple(layers)
     projected = project_layers(layers, crs=args.crs, densify_m=args.densify)
     report = estimate_overlaps(
         projected[0],
@@ -140,6 +172,7 @@ def run(args) -> int:
         **run_metadata(args, inputs=layers),
         **report.metadata(),
         "multiplicity": convert_rows(profile, PROFILE_FIELDS, args.units),
+        "caveat": caveat(reach=any(lay.reach_circles for lay in layers)),
     }
     geoms = overlap_geometries(report, projected[0], projected[1] if args.other else None) if args.output else None
     show(args, SCREEN, report, rows, metadata, inputs=layers, features=(geoms, layers[0].crs, "overlaps"))

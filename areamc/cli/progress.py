@@ -38,7 +38,7 @@ class ProgressBar:
         self._bar.update(points - self._last_n)
         self._last_n = points
         self._bar.set_postfix_str(
-            f"{fid}: {est.estimate / self._factor:.6g} ± {est.half_width / self._factor:.3g} {self._units}",
+            f"{fid}: {est.estimate / self._factor:.6g} {self._units}, std_error {est.std_error / self._factor:.2g}",
             refresh=False,
         )
 
