@@ -28,7 +28,7 @@ from .samplers import Box, SamplerFactory, make_sampler, sampler_name
 from .seeds import child_seed, job_root, make_seed
 from .stopping import StopRule, Stopper
 
-__all__ = ["AreaRow", "AreaReport", "TraceRow", "estimate_areas"]
+__all__ = ["AreaRow", "AreaReport", "TraceRow", "estimate_areas", "AREA_FIELDS"]
 
 
 @dataclass(frozen=True)
@@ -103,6 +103,11 @@ class TraceRow:
         return asdict(self)
 
 
+#: The fields of :class:`AreaRow` and :class:`TraceRow` holding an area (m² of the plane; ``geodesic``
+#: m² on WGS84): those an output unit applies to.  The command line and :mod:`areamc.frames` read this list.
+AREA_FIELDS = ("estimate", "std_error", "ci_low", "ci_high", "box_area", "exact_planar", "geodesic")
+
+
 @dataclass(frozen=True)
 class AreaReport:
     """Rows of an area job and what produced them.
@@ -121,6 +126,13 @@ class AreaReport:
 
     def metadata(self) -> dict:
         return self.run.to_dict()
+
+    def to_dataframe(self, units: str = "km2", which: str = "rows"):
+        """The rows (or, with ``which="trace"``, the running estimates) as a pandas DataFrame, areas
+        in `units` (m2, ha, km2, acre, mi2) of the plane; see :func:`areamc.frames.to_dataframe`."""
+        from .frames import to_dataframe
+
+        return to_dataframe(self, units, which=which)
 
     def trace_rows(self) -> list[TraceRow]:
         """The running estimates of every feature, in row order (areas in m²)."""

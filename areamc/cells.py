@@ -217,15 +217,17 @@ def edge_pieces(geoms, step: float) -> tuple[np.ndarray, ...]:
     return ax + (bx - ax) * t0, ay + (by - ay) * t0, ax + (bx - ax) * t1, ay + (by - ay) * t1, owner[seg]
 
 
-def crossed_cells(geoms, box: Box, nx: int, ny: int) -> tuple[np.ndarray, np.ndarray]:
+def crossed_cells(geoms, box: Box, nx: int, ny: int, pad: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
     """Every (geometry, cell) with an edge of the geometry within a small margin of the cell (conservative).
 
     Cells are row-major ``iy * nx + ix`` over `box`; a geometry reaching
     beyond the box is marked only in the cells it crosses inside it.
-    Returns ``(owner, cell)`` sorted by owner, then cell, without repeats.
+    `pad` (units of `box`, default 0) widens the margin, for edges known
+    only to within that distance.  Returns ``(owner, cell)`` sorted by
+    owner, then cell, without repeats.
     """
     dx, dy = (box.xmax - box.xmin) / nx, (box.ymax - box.ymin) / ny
-    pad = 2 * _margin(box, dx, dy)
+    pad = 2 * _margin(box, dx, dy) + pad
     px0, py0, px1, py1, owner = edge_pieces(geoms, min(dx, dy))
     lo_x = np.floor((np.minimum(px0, px1) - pad - box.xmin) / dx).astype(np.int64)
     hi_x = np.floor((np.maximum(px0, px1) + pad - box.xmin) / dx).astype(np.int64)

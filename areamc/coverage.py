@@ -28,7 +28,15 @@ from .errors import OptionError
 from .estimate import replicate_precision, share_precision
 from .exact import at_least, covered_area, multiplicity_areas, planar_area
 from .intervals import check_confidence, wilson_interval
-from .parallel import SourceHandle, check_workers, map_ordered, source_handle, workers_for_source
+from .parallel import (
+    JobMeter,
+    JobProgress,
+    SourceHandle,
+    check_workers,
+    map_ordered,
+    source_handle,
+    workers_for_source,
+)
 from .project import ProjectedLayer
 from .runinfo import RunInfo
 from .samplers import Box, SamplerFactory, draws_replicates, make_sampler, sampler_name
@@ -48,7 +56,7 @@ from .weighted import (
     weighted_run,
 )
 
-__all__ = ["CoverageRow", "PopulationShare", "CoverageReport", "estimate_coverage"]
+__all__ = ["CoverageRow", "PopulationShare", "CoverageReport", "estimate_coverage", "AREA_FIELDS"]
 
 #: Exact-share status tokens, per region.
 COMPUTED = "computed"
@@ -203,6 +211,11 @@ class CoverageRow:
         return out
 
 
+#: The fields of :class:`CoverageRow` holding an area (m² of the plane): those an output unit applies to
+#: (shares and population counts have none).  The command line and :mod:`areamc.frames` read this list.
+AREA_FIELDS = ("region_area", "covered_area", "area_below_k", "area_below_k_ci_low", "area_below_k_ci_high")
+
+
 @dataclass(frozen=True)
 class CoverageReport:
     """Rows (one per region and k) and what produced them."""
@@ -225,6 +238,13 @@ class CoverageReport:
             "beta-binomial mixture confidence sequence (Howard et al. 2021), valid under optional stopping",
             "exact_status": self.exact_status,
         }
+
+    def to_dataframe(self, units: str = "km2"):
+        """The rows (with a density, their ``population_*`` fields too) as a pandas DataFrame, areas in
+        `units` (m2, ha, km2, acre, mi2) of the plane; see :func:`areamc.frames.to_dataframe`."""
+        from .frames import to_dataframe
+
+        return to_dataframe(self, units)
 
     def _verdicts(self):
         for row in self.rows:
@@ -270,6 +290,7 @@ def estimate_coverage(
     density: DensitySource | None = None,
     importance: bool = True,
     workers: int | None = 1,
+    progress: JobProgress | None = None,
 ) -> CoverageReport:
     """Estimate, per region, the share covered by at least k zones for each k in `ks`.
 
@@ -303,6 +324,12 @@ def estimate_coverage(
     workers : int or None
         Worker processes regions are shared among (None: every usable core); the rows are
         identical, bit for bit, for any number (:func:`~areamc.parallel.map_ordered`).
+    progress : callable, optional
+        ``progress(done, total, unit, note)`` (:data:`~areamc.parallel.JobProgress`): regions
+        (``"region"``) counted as each finishes, in region order, noted with its id; when the
+        regions run in this process (one worker, or one region), also the points drawn so far
+        (``"r3: 65,536 pt"``) and the step running (``"r3: exact shares"``, ``"r3: population"``),
+        with the count unchanged.  It never changes a result.
 
     Returns
     -------
@@ -330,10 +357,13 @@ def estimate_coverage(
     tree = shapely.STRtree(zones.planar)
     region_areas = planar_area(regions.planar)
     handle = source_handle(density)
-    job = _CoverageJob(regions, zones.planar, tree, region_areas, ks, stop, confidence, claim, streams, sampler, chunk,
-                       exact, exact_time_limit_s, handle, importance)
+    meter = JobMeter(progress, len(regions), "region")
+    meter(0)
     workers = workers_for_source(workers, handle, len(regions))
-    results = map_ordered(_coverage_region, range(len(regions)), workers, shared=job)
+    job = _CoverageJob(regions, zones.planar, tree, region_areas, ks, stop, confidence, claim, streams, sampler, chunk,
+                       exact, exact_time_limit_s, handle, importance, meter.here(workers, len(regions)))
+    results = map_ordered(_coverage_region, range(len(regions)), workers, shared=job,
+                          done=meter.items(lambda r: regions.ids[r]))
     rows: list[CoverageRow] = [row for result in results for row in result.rows]
     status: dict = {}
     for rid, result in zip(regions.ids, results):
@@ -365,6 +395,8 @@ class _CoverageJob:
     exact_time_limit_s: float
     density: SourceHandle
     importance: bool
+    #: Reports the steps of a region run in the calling process (None in worker processes).
+    meter: JobMeter | None = None
 
 
 @dataclass(frozen=True)
@@ -392,19 +424,25 @@ def _coverage_region(job: _CoverageJob, r: int) -> _RegionResult:
     classify = region_classifier(region, near, ks, stop.points)
     area = float(job.region_areas[r])
     replicates = draws_replicates(sampler)
+    meter = job.meter
     run = hit_or_miss(
         make_sampler(sampler, child_seed(streams, r, _AREA_STREAM), box),
         classify,
         Stopper(stop, precision=share_precision(confidence), decided=decided),
         chunk=chunk,
+        progress=None if meter is None else lambda drawn, _est: meter(r, f"{rid}: {drawn:,} pt"),
         confidence=confidence,
         # replicate samplers: the shares' half-widths, areas over the region's exact area
         replicate_target=lambda s: replicate_precision(s.known, s.span, confidence, MIN_REPLICATES,
                                                        columns=range(1, 1 + len(ks)), scale=area),
     )
+    if meter is not None and exact:
+        meter(r, f"{rid}: exact shares")
     exact_shares, status = _exact_shares(region, near, ks, exact, job.exact_time_limit_s)
     people, note, nodata = None, None, _NO_CELLS
     if density is not None:
+        if meter is not None:
+            meter(r, f"{rid}: population")
         view = density.for_region(region)
         nodata = view.nodata_cells
         # the population part takes single points: by importance, or uniform when the area part draws replicates

@@ -20,8 +20,9 @@ an immutable view built for that region alone (the model is
 answers for it), with
 
 * ``density(x, y)``: the density at plane points;
-* ``exact_total(clip=None)``: the exact integral over the region (or over
-  the region's part inside `clip`), from :mod:`areamc.exact`, or None;
+* ``exact_total(clip=None, deadline=None)``: the exact integral over the
+  region (or over the region's part inside `clip`), from :mod:`areamc.exact`,
+  or None (none for this source, or `deadline` passed first);
 * ``proposal()``: an importance sampler over the units (blocks, cells) that
   meet the region, or None where the source cannot offer one; then
   :func:`grid_proposal` builds one from a pilot grid of density values
@@ -45,7 +46,7 @@ import shapely
 
 from .classify import GridIndex
 from .errors import AreamcWarning, InputError, LayerError, OptionError
-from .exact import block_total, cell_total
+from .exact import FRACTION_TILE_CELLS, CellFractions, block_total, cell_fractions
 from .expression import Expression, parse_expression
 from .geodesy import authalic_q, eccentricity, latitude_from_q, quadrangle_area
 from .load import Layer, read_layer
@@ -141,11 +142,14 @@ class DensityView(Protocol):
         """Density (count per m²) at plane points; non-negative and finite."""
         ...
 
-    def exact_total(self, clip=None) -> float | None:
-        """Exact integral of the density over the region (∩ `clip`), or None."""
+    def exact_total(self, clip=None, *, deadline: float | None = None) -> float | None:
+        """Exact integral of the density over the region (∩ `clip`), or None.
+
+        None also when `deadline` (a ``time.monotonic()`` value) passes before it is done.
+        """
         ...
 
-    def exact_square_total(self) -> float | None:
+    def exact_square_total(self, *, deadline: float | None = None) -> float | None:
         """Exact integral of the squared density over the region (count² per m²), or None."""
         ...
 
@@ -292,13 +296,16 @@ class _PointwiseView:
 class BlockView(_PointwiseView):
     """:class:`BlockDensity` answering for one region."""
 
-    def exact_total(self, clip=None) -> float:
-        """Σ count_i |block_i ∩ R| / |block_i| over the region R (∩ `clip`), Goodchild & Lam (1980)."""
+    def exact_total(self, clip=None, *, deadline: float | None = None) -> float:
+        """Σ count_i |block_i ∩ R| / |block_i| over the region R (∩ `clip`), Goodchild & Lam (1980).
+
+        One vectorised overlay of the blocks that meet R: `deadline` is not checked.
+        """
         geom = self.region if clip is None else shapely.intersection(self.region, clip)
         near = self.source.near(geom)
         return block_total(self.source.blocks.planar[near], self.source.rates[near], geom)
 
-    def exact_square_total(self) -> float:
+    def exact_square_total(self, *, deadline: float | None = None) -> float:
         """∫_R d² dA = Σ rate_i² |block_i ∩ R| (count² per m²), for the spread of uniform sampling."""
         near = self.source.near(self.region)
         return block_total(self.source.blocks.planar[near], self.source.rates[near] ** 2, self.region)
@@ -482,17 +489,16 @@ class RasterDensity:
             )
         transform = self._ds.window_transform(win)
         rows, cols = raw.shape
-        outlines = None if self.geographic else _cell_outlines(self._to_plane, transform, rows, cols)
         if self.geographic:
             xs, ys = _corners(transform, rows, cols)
             cell_area = np.asarray(quadrangle_area(xs[:-1, :-1], ys[:-1, :-1], xs[1:, 1:], ys[1:, 1:],
                                                    a=self._a, rf=self._rf), float)
         else:
-            cell_area = shapely.area(outlines).reshape(rows, cols)
+            cell_area = _outline_areas(self._to_plane, transform, rows, cols)
         counts = raw if self.values == "count" else raw / RASTER_VALUES[self.values] * cell_area
         with np.errstate(divide="ignore", invalid="ignore"):
             rates = np.where(cell_area > 0, counts / cell_area, 0.0)
-        return RasterView(self, region, transform, counts, rates, nodata, outlines)
+        return RasterView(self, region, transform, counts, rates, nodata)
 
 
 def _corners(transform, rows: int, cols: int):
@@ -502,22 +508,26 @@ def _corners(transform, rows: int, cols: int):
     return np.asarray(xs).reshape(rows + 1, cols + 1), np.asarray(ys).reshape(rows + 1, cols + 1)
 
 
-def _cell_outlines(to_plane, transform, rows: int, cols: int) -> np.ndarray:
-    """Cell outlines in the plane (4 projected corners each), shape (rows * cols,)."""
-    xs, ys = _corners(transform, rows, cols)
-    px, py = to_plane.transform(xs.ravel(), ys.ravel())
-    px = np.asarray(px).reshape(rows + 1, cols + 1)
-    py = np.asarray(py).reshape(rows + 1, cols + 1)
-    ring = np.stack(
-        [
-            np.stack([px[:-1, :-1], py[:-1, :-1]], -1),
-            np.stack([px[:-1, 1:], py[:-1, 1:]], -1),
-            np.stack([px[1:, 1:], py[1:, 1:]], -1),
-            np.stack([px[1:, :-1], py[1:, :-1]], -1),
-        ],
-        axis=2,
-    ).reshape(rows * cols, 4, 2)
-    return shapely.polygons(ring)
+def _outline_areas(to_plane, transform, rows: int, cols: int) -> np.ndarray:
+    """Plane areas (m²) of the cells' 4-corner outlines, shape (rows, cols), a tile of rows at a time.
+
+    A quadrilateral's area is half the cross product of its diagonals (the
+    shoelace formula regrouped), taken from differences of nearby corners,
+    so no precision is lost to the coordinates' size.
+    """
+    out = np.empty((rows, cols))
+    step = max(1, FRACTION_TILE_CELLS // max(cols, 1))
+    for top in range(0, rows, step):
+        n = min(step, rows - top)
+        cc, rr = np.meshgrid(np.arange(cols + 1), np.arange(top, top + n + 1))
+        px, py = to_plane.transform(*_apply(transform, cc.ravel(), rr.ravel()))
+        px = np.asarray(px).reshape(n + 1, cols + 1)
+        py = np.asarray(py).reshape(n + 1, cols + 1)
+        # diagonals: lower-left corner (c, r) to (c + 1, r + 1), and (c + 1, r) to (c, r + 1)
+        d1x, d1y = px[1:, 1:] - px[:-1, :-1], py[1:, 1:] - py[:-1, :-1]
+        d2x, d2y = px[1:, :-1] - px[:-1, 1:], py[1:, :-1] - py[:-1, 1:]
+        out[top:top + n] = 0.5 * np.abs(d1x * d2y - d1y * d2x)
+    return out
 
 
 @dataclass(frozen=True, eq=False)
@@ -526,7 +536,8 @@ class RasterView:
 
     `transform` is None when the raster does not reach the region; then the
     density is 0 there.  `counts` and `rates` are per cell of the window
-    (persons, and persons per m²).
+    (persons, and persons per m²).  A cell's footprint on the plane, for the
+    exact totals, is the quadrilateral of its 4 projected corners.
     """
 
     source: RasterDensity
@@ -535,14 +546,33 @@ class RasterView:
     counts: np.ndarray | None
     rates: np.ndarray | None
     nodata_cells: np.ndarray = field(default_factory=lambda: _NO_CELLS, repr=False)
-    outlines: np.ndarray | None = field(default=None, repr=False)
+    #: The region's cell fractions, kept once computed (the total and the square total share them).
+    _fractions: dict = field(default_factory=dict, init=False, repr=False, compare=False)
 
-    @cached_property
-    def cells(self) -> np.ndarray:
-        """Cell outlines in the plane (built on first need for geographic rasters)."""
-        if self.outlines is not None:
-            return self.outlines
-        return _cell_outlines(self.source._to_plane, self.transform, *self.counts.shape)
+    def to_plane(self, col, row) -> tuple[np.ndarray, np.ndarray]:
+        """Plane metres of window grid points given in fractional columns and rows (corner (c, r) of cell (r, c))."""
+        x, y = self.source._to_plane.transform(*_apply(self.transform, col, row))
+        return np.asarray(x, float), np.asarray(y, float)
+
+    def to_grid(self, x, y) -> tuple[np.ndarray, np.ndarray]:
+        """Fractional window columns and rows of plane points (metres); the inverse of :meth:`to_plane`."""
+        rx, ry = self.source._to_raster.transform(x, y)
+        col, row = _apply(~self.transform, np.asarray(rx), np.asarray(ry))
+        return np.asarray(col, float), np.asarray(row, float)
+
+    def fractions(self, clip=None, *, deadline: float | None = None) -> CellFractions | None:
+        """Each window cell's share inside the region (∩ `clip`), by :func:`~areamc.exact.cell_fractions`.
+
+        None when `deadline` (a ``time.monotonic()`` value) passes first.  The
+        region's own fractions (`clip` None) are kept for the view's later calls.
+        """
+        if clip is None and "region" in self._fractions:
+            return self._fractions["region"]
+        geom = self.region if clip is None else shapely.intersection(self.region, clip)
+        out = cell_fractions(geom, self.counts.shape, self.to_plane, self.to_grid, deadline=deadline)
+        if clip is None and out is not None:
+            self._fractions["region"] = out
+        return out
 
     def density(self, x, y):
         """Density (count per m²) at plane points; 0 outside the window."""
@@ -557,18 +587,22 @@ class RasterView:
         out[ok] = self.rates[row[ok], col[ok]]
         return out
 
-    def exact_total(self, clip=None) -> float:
-        """Σ cell count x share of the cell inside the region (∩ `clip`); cells outlined by 4 corners in the plane."""
-        if self.transform is None:
-            return 0.0
-        geom = self.region if clip is None else shapely.intersection(self.region, clip)
-        return cell_total(self.cells, self.counts.ravel(), geom)
+    def exact_total(self, clip=None, *, deadline: float | None = None) -> float | None:
+        """Σ cell count x share of the cell inside the region (∩ `clip`); cells outlined by 4 corners in the plane.
 
-    def exact_square_total(self) -> float:
-        """∫_R d² dA = Σ count x rate x share of the cell inside R (count² per m²)."""
+        None when `deadline` (a ``time.monotonic()`` value) passes first (:meth:`fractions`).
+        """
         if self.transform is None:
             return 0.0
-        return cell_total(self.cells, (self.counts * self.rates).ravel(), self.region)
+        fractions = self.fractions(clip, deadline=deadline)
+        return None if fractions is None else fractions.total(self.counts)
+
+    def exact_square_total(self, *, deadline: float | None = None) -> float | None:
+        """∫_R d² dA = Σ count x rate x share of the cell inside R (count² per m²); None past `deadline`."""
+        if self.transform is None:
+            return 0.0
+        fractions = self.fractions(deadline=deadline)
+        return None if fractions is None else fractions.total(self.counts, self.rates)
 
     def _importance_ok(self) -> bool:
         if self.source.geographic:
@@ -778,10 +812,10 @@ class ExpressionDensity:
 class ExpressionView(_PointwiseView):
     """:class:`ExpressionDensity` for one region: no exact total and no units to sample (see :func:`grid_proposal`)."""
 
-    def exact_total(self, clip=None) -> None:
+    def exact_total(self, clip=None, *, deadline: float | None = None) -> None:
         return None
 
-    def exact_square_total(self) -> None:
+    def exact_square_total(self, *, deadline: float | None = None) -> None:
         return None
 
     def proposal(self) -> None:

@@ -5,7 +5,10 @@ repairs and skipped features, the extent in the layer's CRS and in
 longitude/latitude (degrees), the attribute fields (declared type, distinct and
 missing values, whether one could label the features), the equal-area plane
 with its measured distortion, and, for polygons, the exact planar (m² of that
-plane) and geodesic (m² on WGS84) totals.
+plane) and geodesic (m² on WGS84) totals.  For a layer in a projected CRS in metres
+or feet (a national grid, UTM), it also gives the total area measured in that CRS's
+own plane, the grid area, which differs from the true (ellipsoidal) area by the
+square of the CRS's point scale factor (docs/methods.md, "Which area").
 """
 
 from __future__ import annotations
@@ -28,7 +31,11 @@ from .project import (
     transformer,
 )
 
-__all__ = ["FieldDescription", "LayerDescription", "describe_fields", "describe_layer"]
+__all__ = ["FieldDescription", "LayerDescription", "describe_fields", "describe_layer", "grid_area", "grid_unit_m",
+           "AREA_FIELDS"]
+
+#: The fields of :class:`LayerDescription` holding an area (m²): those an output unit applies to.
+AREA_FIELDS = ("exact_planar_total", "geodesic_total", "planar_total_in_layer_crs")
 
 
 @dataclass(frozen=True)
@@ -99,9 +106,15 @@ class LayerDescription:
         The plane the jobs would compute in, with its measured area distortion over the
         extent (``to_dict()`` gives the object every command writes).
     exact_planar_total, geodesic_total : float or None
-        Total areas, m² (polygons only).
+        Total areas, m² (polygons only): on the equal-area plane and on the WGS84 ellipsoid,
+        both true areas, the ones the jobs report.
     fields : tuple of FieldDescription
         The attribute fields in file order, counted over the kept features.
+    planar_total_in_layer_crs : float or None
+        For polygons in a projected CRS whose axes are metres or feet (:func:`grid_unit_m`),
+        shapely's area of the features in that CRS's own coordinates, converted to m²: the grid
+        area, which a conformal CRS (Transverse Mercator) scales by its point scale factor
+        squared.  None for a geographic CRS, another unit, or points.
     """
 
     path: str
@@ -122,6 +135,7 @@ class LayerDescription:
     exact_planar_total: float | None
     geodesic_total: float | None
     fields: tuple[FieldDescription, ...] = ()
+    planar_total_in_layer_crs: float | None = None
 
     def to_dict(self) -> dict:
         """Plain values for JSON: tuples become lists, the plane its ``to_dict()``, each field a dict."""
@@ -143,6 +157,7 @@ class LayerDescription:
             "plane": self.plane.to_dict(),
             "exact_planar_total": self.exact_planar_total,
             "geodesic_total": self.geodesic_total,
+            "planar_total_in_layer_crs": self.planar_total_in_layer_crs,
             "fields": [f.to_dict() for f in self.fields],
         }
 
@@ -172,6 +187,40 @@ def describe_fields(layer: Layer) -> tuple[FieldDescription, ...]:
 def _unit(crs: pyproj.CRS) -> str:
     """The unit name of the first axis of `crs` (``degree``, ``metre``, ...), or ``unknown``."""
     return crs.axis_info[0].unit_name if crs.axis_info else "unknown"
+
+
+def grid_unit_m(crs: pyproj.CRS) -> float | None:
+    """Metres in one unit of a projected CRS whose two horizontal axes share a unit of metres or
+    feet (``metre``, ``foot``, ``US survey foot``, ...: the CRS's own factor), else None.
+
+    >>> grid_unit_m(pyproj.CRS("EPSG:27700")), grid_unit_m(pyproj.CRS("EPSG:4326"))
+    (1.0, None)
+    >>> round(grid_unit_m(pyproj.CRS("EPSG:2263")), 12)  # NAD83 / New York Long Island (ftUS), 1200/3937 m
+    0.304800609601
+    """
+    if not crs.is_projected or len(crs.axis_info) < 2:
+        return None
+    axes = crs.axis_info[:2]
+    units = {(axis.unit_name, axis.unit_conversion_factor) for axis in axes}
+    if len(units) != 1:
+        return None
+    (name, factor), = units
+    if not (name.endswith("metre") or "foot" in name) or not factor or factor <= 0:
+        return None
+    return float(factor)
+
+
+def grid_area(layer: Layer) -> float | None:
+    """Total area of a polygon layer in its own projected CRS, m² (:func:`grid_unit_m`), else None.
+
+    Shapely's planar area of the kept (repaired) geometries in the layer's coordinates, times the
+    square of metres per CRS unit: no reprojection, so for a conformal grid it is the grid area,
+    not the true area.
+    """
+    factor = grid_unit_m(layer.crs) if layer.kind == "polygon" else None
+    if factor is None:
+        return None
+    return float(shapely.area(layer.geometries).sum()) * factor * factor
 
 
 def describe_layer(layer: Layer, *, crs: str | pyproj.CRS | None = None,
@@ -227,4 +276,5 @@ def describe_layer(layer: Layer, *, crs: str | pyproj.CRS | None = None,
         exact_planar_total=planar_total,
         geodesic_total=geodesic_total,
         fields=describe_fields(layer),
+        planar_total_in_layer_crs=grid_area(layer),
     )

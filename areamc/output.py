@@ -1,4 +1,4 @@
-"""Render result rows as a table, CSV or JSON, and write files atomically.
+"""Render result rows as a table, CSV or JSON, describe their fields, and write files atomically.
 
 This module only formats: it receives rows as dicts with areas in m² and
 converts the columns it is told hold areas into the chosen unit.  Files are
@@ -6,15 +6,23 @@ written to a temporary name beside the target and renamed into place, so a
 failed run never leaves a partial file; an :class:`OutputBatch` renames
 several files only once all are written.  :func:`check_output_path` refuses,
 before any work, an output path that would replace an input or one of its
-sidecar files, or that cannot be written.
+sidecar files, or that cannot be written; :func:`check_output_paths` does so for
+every file a run writes (a CSV's metadata sidecar, a Shapefile's parts).
+
+Fields are described by :func:`record_types` (their type, from the row records'
+annotations, whatever values a run happens to give) and :func:`field_units`; a
+CSV file gets a sidecar ``NAME.csv-metadata.json`` in the W3C "CSV on the Web"
+form (:func:`csv_metadata`).
 """
 
 from __future__ import annotations
 
 import csv
+import dataclasses
 import io
 import json
 import math
+import numbers
 import os
 import shutil
 import tempfile
@@ -43,9 +51,25 @@ __all__ = [
     "WIDTH",
     "SHAPEFILE_PARTS",
     "SQLITE_SIDECARS",
+    "TEXT_EXTENSIONS",
+    "FEATURE_EXTENSIONS",
+    "record_types",
+    "value_type",
+    "field_units",
+    "csv_metadata",
+    "metadata_path",
+    "output_files",
+    "check_output_paths",
+    "write_json",
+    "json_safe",
 ]
 
 FORMATS = ("table", "csv", "json")
+#: Extensions of the text outputs and the format each holds (None: the one ``--format`` names, a
+#: table by default).
+TEXT_EXTENSIONS = {".csv": "csv", ".json": "json", ".txt": None, "": None}
+#: Extensions of the feature outputs (:mod:`areamc.vector` writes them).
+FEATURE_EXTENSIONS = (".gpkg", ".geojson", ".shp", ".fgb")
 
 
 class Column:
@@ -93,13 +117,14 @@ class Column:
 
     def cells(self, rows: Sequence[dict]) -> list[str]:
         """The column's cells for `rows`, each rounded to its row's error; a row whose error is zero
-        or missing (an exact row) gets the most decimals any other row of the column got."""
+        or missing (an exact or empty row) gets the column's fixed format, or else the fewest
+        decimals any other row of the column got."""
         if self.error is None:
             return [self.text(row.get(self.field)) for row in rows]
         errors = [self.error_of(row) for row in rows]
         decimals = [None if e is None else decimals_for(e) for e in errors]
         known = [d for d in decimals if d is not None]
-        fallback = max(known) if known else None
+        fallback = None if self.spec or not known else min(known)
         return [self.text(row.get(self.field), fallback if d is None else d) for row, d in zip(rows, decimals)]
 
 
@@ -142,7 +167,7 @@ def convert_rows(rows: Iterable[dict], columns: Sequence[Column], units: str) ->
 
 
 def format_number(value) -> str:
-    """Format a value for the table: 6 significant digits, blanks for None."""
+    """Format a value for the table: 7 significant digits (whole numbers in full), ``-`` for None."""
     if value is None:
         return "-"
     if isinstance(value, bool):
@@ -218,7 +243,9 @@ def _align(cells: list[str], heading: str) -> tuple[list[str], bool]:
     """Cells of one column, padded so that decimal points line up, and whether it is numeric
     (right-aligned); a column holding any text that is not a number (ids, tokens) is not."""
     filled = [c for c in cells if c not in ("", "-")]
-    if not filled or not all(_numeric(c) for c in filled):
+    if not filled:  # every value missing: the column keeps a number column's right alignment
+        return cells, True
+    if not all(_numeric(c) for c in filled):
         return cells, False
     lefts = [c.split(".", 1)[0] for c in cells]
     rights = ["." + c.split(".", 1)[1] if "." in c else "" for c in cells]
@@ -244,14 +271,172 @@ def _table(rows: list[dict], columns: Sequence[Column], header: Sequence[str], f
     return "\n".join(lines) + "\n"
 
 
-def _json_safe(value):
+def json_safe(value):
+    """`value` with NaN as None and infinities as the strings ``"inf"``/``"-inf"`` (JSON has neither),
+    in nested dicts and lists too."""
     if isinstance(value, float) and not math.isfinite(value):
         return None if math.isnan(value) else ("inf" if value > 0 else "-inf")
     if isinstance(value, dict):
-        return {k: _json_safe(v) for k, v in value.items()}
+        return {k: json_safe(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
-        return [_json_safe(v) for v in value]
+        return [json_safe(v) for v in value]
     return value
+
+
+# --- what each field holds ---------------------------------------------------------------------
+
+#: The field types of result files: text, whole number, real number, boolean.
+FIELD_TYPES = ("str", "int", "float", "bool")
+
+
+def _annotation_type(annotation) -> str | None:
+    """``"float | None"`` -> ``"float"``; None for an annotation that is no plain field type."""
+    text = annotation if isinstance(annotation, str) else getattr(annotation, "__name__", str(annotation))
+    names = [part.strip() for part in text.split("|") if part.strip() != "None"]
+    return names[0] if len(names) == 1 and names[0] in FIELD_TYPES else None
+
+
+def record_types(*classes) -> dict[str, str]:
+    """The type of every field the row records `classes` write, from their annotations.
+
+    Each class is a dataclass whose ``to_dict()`` names its fields (as :class:`~areamc.area.AreaRow`
+    does); a field annotated ``float | None`` is ``"float"`` whether or not a run fills it, so a
+    column's type never depends on the options or on missing values.  The names come from
+    ``to_dict()`` itself, called on a probe record whose every plain field holds its annotation
+    (fields of other types, such as a nested record, hold None), so renamed fields
+    (``population_share``) are found too.  Later classes add to and override earlier ones.
+
+    >>> from dataclasses import dataclass, asdict
+    >>> @dataclass(frozen=True)
+    ... class Row:
+    ...     id: str
+    ...     z: "float | None"
+    ...     flagged: bool
+    ...     def to_dict(self):
+    ...         return asdict(self)
+    >>> record_types(Row)
+    {'id': 'str', 'z': 'float', 'flagged': 'bool'}
+    """
+    out: dict[str, str] = {}
+    for cls in classes:
+        probe = cls(**{f.name: (f.type if _annotation_type(f.type) else None) for f in dataclasses.fields(cls)})
+        for name, value in probe.to_dict().items():
+            kind = _annotation_type(value) if isinstance(value, str) else None
+            if kind is not None:
+                out[name] = kind
+    return out
+
+
+def value_type(values: Iterable) -> str:
+    """The type of a field no record declares, from its values: ``"int"`` when every value present
+    is a whole number (or boolean), ``"float"`` when every one is a number, else ``"str"``; a field
+    with no value present is ``"float"``."""
+    kinds = set()
+    for v in values:
+        if v is None:
+            continue
+        if isinstance(v, bool) or type(v).__name__ == "bool_":
+            kinds.add("int")
+        elif isinstance(v, numbers.Integral):
+            kinds.add("int")
+        elif isinstance(v, numbers.Real):
+            kinds.add("float")
+        else:
+            kinds.add("str")
+    if not kinds or kinds == {"float"} or kinds == {"int", "float"}:
+        return "float"
+    return "int" if kinds == {"int"} else "str"
+
+
+#: Units of the fields that hold no area and mean the same in every job (docs/output.md, the
+#: "unit" column of each command's row table).
+PLAIN_UNITS = {
+    "z": "standard errors",
+    **dict.fromkeys(("share", "share_a", "share_b", "exact_share", "claim", "largest_weight_share",
+                     "population_share", "population_share_std_error", "population_share_ci_low",
+                     "population_share_ci_high", "population_exact_share", "population_largest_weight_share"),
+                    "fraction"),
+    **dict.fromkeys(("points", "hits", "region_points", "pilot_points", "replicates", "population_points",
+                     "effective_points", "population_effective_points", "k", "population_total",
+                     "population_covered"), "count"),
+}
+#: Fields whose unit depends on the job, where they hold no area: a coverage row's interval is a
+#: share, an integrate row's estimate a count (e.g. persons).
+JOB_UNITS = {
+    "coverage": dict.fromkeys(("std_error", "ci_low", "ci_high"), "fraction"),
+    "integrate": dict.fromkeys(("estimate", "std_error", "ci_low", "ci_high", "exact"), "count"),
+}
+
+
+def field_units(names: Iterable[str], columns: Sequence[Column], units: str, job: str | None = None) -> dict:
+    """The unit of each field in `names` as written: `units` for an area column of `columns`
+    (areas are converted to ``--units`` on output), ``"count per UNITS"`` for a per-area column,
+    else :data:`JOB_UNITS` of `job` or :data:`PLAIN_UNITS`; None for ids, tokens and flags.
+
+    >>> field_units(["id", "estimate", "z"], [Column("estimate", area=True)], "km2")
+    {'id': None, 'estimate': 'km2', 'z': 'standard errors'}
+    """
+    area = {c.field for c in columns if c.area}
+    per_area = {c.field for c in columns if c.per_area}
+    by_job = JOB_UNITS.get(job or "", {})
+    out = {}
+    for name in names:
+        if name in area:
+            out[name] = units
+        elif name in per_area:
+            out[name] = f"count per {units}"
+        else:
+            out[name] = by_job.get(name, PLAIN_UNITS.get(name))
+    return out
+
+
+#: CSVW datatypes of the field types (W3C, "Metadata Vocabulary for Tabular Data", 2015, §5.11.2
+#: built-in datatypes; a boolean's ``format`` "True|False" gives its two spellings, §6.4.1) [memory].
+_CSVW_TYPES = {"str": "string", "int": "integer", "float": "double",
+               "bool": {"base": "boolean", "format": "True|False"}}
+#: The JSON-LD context of a CSVW metadata document (W3C 2015, §5.2).
+CSVW_CONTEXT = "http://www.w3.org/ns/csvw"
+
+
+def metadata_path(path: str) -> str:
+    """The metadata sidecar of a CSV, Shapefile or FlatGeobuf output: ``NAME.EXT-metadata.json``, the
+    file name CSVW processors look for first beside a CSV file (W3C, "Model for Tabular Data and
+    Metadata on the Web", 2015, §5.2 "Locating metadata": ``{+url}-metadata.json``) [memory]."""
+    return path + "-metadata.json"
+
+
+def csv_metadata(path: str, names: Sequence[str], types: Mapping[str, str], units_of: Mapping[str, str | None],
+                 metadata: Mapping) -> dict:
+    """The CSVW metadata document of the CSV file `path` (W3C Recommendation 2015, "Metadata
+    Vocabulary for Tabular Data").
+
+    ``url`` names the CSV file (relative to the sidecar beside it); ``tableSchema.columns`` lists
+    each column's ``name`` (the CSV heading), ``datatype`` and unit (``schema:unitText``, a common
+    property from schema.org, omitted for ids, tokens and flags); the run's metadata (the JSON
+    output's keys without ``results``) is the table's one note (``notes``, §5.3).  Areas are in the
+    ``--units`` the metadata's ``units`` names.
+    """
+    columns = []
+    for name in names:
+        column = {"name": name, "titles": name, "datatype": _CSVW_TYPES[types.get(name, "str")]}
+        if units_of.get(name):
+            column["schema:unitText"] = units_of[name]
+        columns.append(column)
+    document = {
+        "@context": CSVW_CONTEXT,
+        "url": os.path.basename(path),
+        "dc:creator": f"areamc {metadata.get('version', '')}".strip(),
+        "tableSchema": {"columns": columns},
+        "notes": [dict(metadata)],
+    }
+    if metadata.get("finished"):
+        document["dc:created"] = metadata["finished"]
+    return json_safe(document)
+
+
+def write_json(document, path: str, *, batch: "OutputBatch | None" = None) -> None:
+    """Write `document` as indented JSON (NaN as null, infinities as strings) to `path`, atomically."""
+    write_text(json.dumps(json_safe(document), indent=2) + "\n", path, batch=batch)
 
 
 def render_fields(record: dict, labels: dict[str, str], area_fields: Sequence[str], units: str) -> str:
@@ -307,7 +492,7 @@ def render(
         document = dict(metadata)
         document["units"] = units
         document["results"] = converted
-        return json.dumps(_json_safe(document), indent=2) + "\n"
+        return json.dumps(json_safe(document), indent=2) + "\n"
     raise OptionError(f"{{param}}: unknown format {fmt!r}; choose one of {', '.join(FORMATS)}", param="fmt")
 
 
@@ -461,6 +646,62 @@ def check_output_path(
         raise OptionError(f"{{param}} {path}: folder {folder} is not writable", param=param)
 
 
+#: The parts GDAL writes beside a Shapefile's ``.shp`` (fiona's "ESRI Shapefile" driver, with a CRS and
+#: an encoding), and the spatial indexes an older dataset of that name may have left (common practice).
+SHAPEFILE_WRITTEN = (".shx", ".dbf", ".prj", ".cpg")
+SHAPEFILE_STALE = (".shx", ".dbf", ".prj", ".cpg", ".qix", ".sbn", ".sbx")
+#: Outputs that get a metadata sidecar (:func:`metadata_path`): CSV (its CSVW description), and the
+#: feature formats with no room for it (a Shapefile's .dbf holds no layer metadata; GDAL writes no
+#: free metadata into a FlatGeobuf header).
+SIDECAR_EXTENSIONS = (".csv", ".shp", ".fgb")
+
+
+def output_files(path: str) -> list[str]:
+    """Every file writing the output `path` makes: `path`, a Shapefile's other parts
+    (:data:`SHAPEFILE_WRITTEN`), and the metadata sidecar of a CSV, Shapefile or FlatGeobuf
+    (:func:`metadata_path`).  Paths only, spelt beside `path`.
+
+    >>> output_files("out/areas.shp")
+    ['out/areas.shp', 'out/areas.shx', 'out/areas.dbf', 'out/areas.prj', 'out/areas.cpg', 'out/areas.shp-metadata.json']
+    """
+    root, ext = os.path.splitext(path)
+    files = [path]
+    if ext.lower() == ".shp":
+        files += [root + part for part in SHAPEFILE_WRITTEN]
+    if ext.lower() in SIDECAR_EXTENSIONS:
+        files.append(metadata_path(path))
+    return files
+
+
+def check_output_paths(outputs: Mapping[str, str | None], inputs: Iterable[str | None] = ()) -> None:
+    """Refuse, before any work, output paths (parameter name to path, None skipped) that
+    :func:`check_output_path` refuses, for each output and every further file it makes
+    (:func:`output_files`), or two outputs that would write one file.
+
+    Raises
+    ------
+    OptionError
+        Naming the parameter and the path at fault (the sidecar or Shapefile part, where that is
+        the file that clashes).
+    """
+    inputs = [i for i in inputs if i]
+    seen: dict[str, str] = {}
+    for param, path in outputs.items():
+        if not path:
+            continue
+        check_output_path(path, inputs, param=param, outputs=seen)
+        mine = output_files(path)
+        for companion in mine[1:]:
+            check_output_path(companion, inputs, param=param)
+        for other_param, other in seen.items():
+            for theirs in output_files(other):
+                for file in mine:
+                    if _clash(file, theirs) is not None or _clash(theirs, file) is not None:
+                        raise OptionError(f"{{{param}}} {path}: writes {file}, which {{{other_param}}} {other} "
+                                          "also writes; give each output its own path", params=(param, other_param))
+        seen[param] = path
+
+
 def cannot_write(err: BaseException, path: str) -> OSError:
     """An OSError naming the target `path` (not the temporary file) for a failure while writing it.
 
@@ -483,13 +724,37 @@ def cannot_write(err: BaseException, path: str) -> OSError:
     return OSError(code, f"cannot write: {reason}", path)
 
 
-def _discard(tmp: str) -> None:
-    for leftover in (tmp, *(tmp + side for side in SQLITE_SIDECARS)):
+def _discard(tmp: str, parts: Sequence[str] = ()) -> None:
+    root = os.path.splitext(tmp)[0]
+    for leftover in (tmp, *(tmp + side for side in SQLITE_SIDECARS), *(root + part for part in parts)):
         try:
             if os.path.lexists(leftover):
                 os.unlink(leftover)
         except OSError:
             pass
+
+
+def _rename_parts(tmp: str, path: str, parts: Sequence[str]) -> set[str]:
+    """Rename the files beside `tmp` with extensions `parts` to the same names beside `path`; the
+    extensions renamed (lower case)."""
+    tmp_root, root = os.path.splitext(tmp)[0], os.path.splitext(path)[0]
+    written = set()
+    for part in parts:
+        if os.path.lexists(tmp_root + part):
+            os.replace(tmp_root + part, root + part)
+            written.add(part.lower())
+    return written
+
+
+def _remove_stale(path: str, stale: Sequence[str], written: set[str]) -> None:
+    """Remove the files beside `path` with extensions `stale` (in either case) not in `written`."""
+    root = os.path.splitext(path)[0]
+    for part in stale:
+        if part.lower() in written:
+            continue
+        for spelling in {part.lower(), part.upper()}:
+            if os.path.isfile(root + spelling):
+                os.unlink(root + spelling)
 
 
 class OutputBatch:
@@ -515,19 +780,24 @@ class OutputBatch:
     """
 
     def __init__(self) -> None:
-        self._staged: list[tuple[str, str]] = []
+        self._staged: list[tuple[str, str, tuple[str, ...], tuple[str, ...]]] = []
 
     @contextmanager
-    def staging(self, path: str, suffix: str = "", *, create: bool = True):
+    def staging(self, path: str, suffix: str = "", *, create: bool = True, parts: Sequence[str] = (),
+                stale: Sequence[str] = ()):
         """Yield a temporary name beside `path` to write (created empty, or absent if not `create`).
 
         An OSError inside is raised again naming `path`; the temporary file is removed when the
-        batch fails.  It is renamed to `path` when the batch commits.
+        batch fails.  It is renamed to `path` when the batch commits.  `parts` are the extensions of
+        further files the writer makes beside the temporary name (a Shapefile's ``.shx``, ``.dbf``,
+        ...): each that exists is renamed beside `path` first, and removed if the batch fails.
+        `stale` are extensions of files beside `path` that belong to the dataset it replaces (a
+        Shapefile's spatial indexes): those the new dataset did not write are removed at commit.
         """
         folder = os.path.dirname(os.path.abspath(path))
         try:
             fd, tmp = tempfile.mkstemp(prefix=".areamc-", suffix=suffix, dir=folder)
-            self._staged.append((tmp, path))
+            self._staged.append((tmp, path, tuple(parts), tuple(stale)))
             os.close(fd)
             if create:
                 umask = os.umask(0)
@@ -546,21 +816,23 @@ class OutputBatch:
         staged, self._staged = self._staged, []
         try:
             while staged:
-                tmp, path = staged[0]
+                tmp, path, parts, stale = staged[0]
                 try:
+                    written = _rename_parts(tmp, path, parts)
                     os.replace(tmp, path)
+                    _remove_stale(path, stale, written)
                 except OSError as err:
                     raise cannot_write(err, path) from err
                 staged.pop(0)
         finally:
-            for tmp, _ in staged:
-                _discard(tmp)
+            for tmp, _, parts, _ in staged:
+                _discard(tmp, parts)
 
     def discard(self) -> None:
         """Remove every staged temporary file; no target is touched."""
         staged, self._staged = self._staged, []
-        for tmp, _ in staged:
-            _discard(tmp)
+        for tmp, _, parts, _ in staged:
+            _discard(tmp, parts)
 
     def __enter__(self) -> "OutputBatch":
         return self

@@ -23,7 +23,7 @@ All areas are m² of the equal-area plane.
 from __future__ import annotations
 
 import time
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 import shapely
@@ -35,7 +35,7 @@ from .engine import DEFAULT_CHUNK, accumulate, hit_or_miss
 from .estimate import AreaEstimate, area_precision
 from .exact import at_least, intersection_areas, multiplicity_areas, planar_area
 from .intervals import check_confidence, wilson_interval
-from .parallel import SPAN_UNIT, check_workers, map_ordered
+from .parallel import SPAN_UNIT, JobMeter, JobProgress, check_workers, map_ordered
 from .project import ProjectedLayer, transform_geometries, transformer
 from .errors import OptionError
 from .runinfo import RunInfo
@@ -44,7 +44,8 @@ from .seeds import child_seed, job_root, make_seed
 from .stopping import BUDGET, StopRule, Stopper
 
 __all__ = ["OverlapRow", "MultiplicityRow", "OverlapReport", "candidate_pairs", "estimate_overlaps", "overlap_geometries",
-           "pair_sampling_for", "zone_pairs", "PAIR_SAMPLINGS", "AUTO", "SHARED", "PER_PAIR"]
+           "pair_sampling_for", "zone_pairs", "PAIR_SAMPLINGS", "AUTO", "SHARED", "PER_PAIR", "AREA_FIELDS",
+           "PROFILE_AREA_FIELDS"]
 
 #: Exact profile status tokens.
 COMPUTED = "computed"
@@ -123,6 +124,14 @@ class MultiplicityRow:
         return asdict(self)
 
 
+#: The fields of :class:`OverlapRow` and of :class:`MultiplicityRow` holding an area (m² of the plane):
+#: those an output unit applies to.  The command line and :mod:`areamc.frames` read these lists.
+AREA_FIELDS = ("estimate", "std_error", "ci_low", "ci_high", "box_area", "exact_planar")
+PROFILE_AREA_FIELDS = ("area_exactly", "area_exactly_ci_low", "area_exactly_ci_high", "area_at_least",
+                       "area_at_least_std_error", "area_at_least_ci_low", "area_at_least_ci_high",
+                       "area_exactly_exact", "area_at_least_exact")
+
+
 @dataclass(frozen=True)
 class OverlapReport:
     """Pairs, the multiplicity profile, and what produced them."""
@@ -139,6 +148,13 @@ class OverlapReport:
     def metadata(self) -> dict:
         return {**self.run.to_dict(), "candidate_pairs": self.candidates, "exact_multiplicity": self.exact_profile,
                 "pair_sampling": self.pair_sampling}
+
+    def to_dataframe(self, units: str = "km2", which: str = "rows"):
+        """The pairs (or, with ``which="profile"``, the multiplicity profile) as a pandas DataFrame,
+        areas in `units` (m2, ha, km2, acre, mi2) of the plane; see :func:`areamc.frames.to_dataframe`."""
+        from .frames import to_dataframe
+
+        return to_dataframe(self, units, which=which)
 
 
 def candidate_pairs(a: ProjectedLayer, b: ProjectedLayer | None = None) -> np.ndarray:
@@ -201,6 +217,7 @@ def estimate_overlaps(
     exact_time_limit_s: float = 10.0,
     workers: int | None = 1,
     pair_sampling: str = AUTO,
+    progress: JobProgress | None = None,
 ) -> OverlapReport:
     """Estimate every pairwise overlap and (for one layer) the multiplicity profile.
 
@@ -237,6 +254,12 @@ def estimate_overlaps(
         for bit, for any number (:func:`~areamc.parallel.map_ordered`).
     pair_sampling : str
         :data:`SHARED`, :data:`PER_PAIR` or :data:`AUTO` (see :func:`pair_sampling_for`).
+    progress : callable, optional
+        ``progress(done, total, unit, note)`` (:data:`~areamc.parallel.JobProgress`): per-pair
+        sampling counts pairs (``"pair"``) as each finishes, in pair order; the shared sample counts
+        its points (``"pt"``) per chunk, or per span with several workers.  The notes name the pair
+        just finished (``"A x B"``) or the step running (``"exact intersection areas"``,
+        ``"multiplicity profile"``, ``"exact profile"``).  It never changes a result.
 
     Returns
     -------
@@ -254,21 +277,38 @@ def estimate_overlaps(
     streams = job_root(root, "overlap")
     other = a if b is None else b
     pairs = candidate_pairs(a, b)
+    n_pairs = int(pairs.shape[1])
+    with_profile = profile and b is None
+    if method == SHARED:  # the bar counts the shared sample's points (none when there is nothing to count)
+        total = 0 if not n_pairs and not with_profile else None if stop.adaptive else stop.points
+        meter = JobMeter(progress, total, "pt")
+    else:
+        meter = JobMeter(progress, n_pairs, "pair")
+    meter(0)
     area_a = planar_area(a.planar)
     area_b = planar_area(other.planar)
-    exact_pairs = intersection_areas(a.planar[pairs[0]], other.planar[pairs[1]]) if exact and pairs.size else None
+    exact_pairs = _exact_pairs(a.planar, other.planar, pairs, meter) if exact and pairs.size else None
     shapely.prepare(a.planar)
     shapely.prepare(other.planar)
     job = _OverlapJob(a, other, pairs, area_a, area_b, exact_pairs, stop, confidence, streams, sampler, chunk,
                       min_share, exact, exact_time_limit_s)
-    with_profile = profile and b is None
     info = RunInfo("overlap", a.plane, confidence, int(root.entropy), sampler_name(sampler), stop, a.densify_m)
     if method == SHARED:
-        rows, kept, multiplicity, exact_profile = _shared(job, b is None, with_profile, workers)
+        rows, kept, multiplicity, exact_profile = _shared(job, b is None, with_profile, workers, meter)
         return OverlapReport(tuple(rows), tuple(kept), multiplicity, int(pairs.shape[1]), info, exact_profile, SHARED)
     # the profile, one estimate over every zone, goes first so that it does not run alone at the end
     items = ([_PROFILE_ITEM] if with_profile else []) + list(range(pairs.shape[1]))
-    results = map_ordered(_overlap_item, items, workers, shared=job)
+    if with_profile:
+        meter(0, "multiplicity profile")
+    job = replace(job, meter=meter.here(workers, len(items)))  # steps inside an item are reported from here only
+
+    def label(k: int) -> str:
+        if items[k] == _PROFILE_ITEM:
+            return "multiplicity profile"
+        i, j = (int(v) for v in pairs[:, items[k]])
+        return f"{a.ids[i]} x {other.ids[j]}"
+
+    results = map_ordered(_overlap_item, items, workers, shared=job, done=meter.items(label, int(with_profile)))
     multiplicity: tuple[MultiplicityRow, ...] = ()
     exact_profile = NOT_ASKED
     if with_profile:
@@ -301,6 +341,24 @@ class _OverlapJob:
     min_share: float
     exact: bool
     exact_time_limit_s: float
+    #: Reports the steps of an item run in the calling process (None in worker processes).
+    meter: JobMeter | None = None
+
+
+#: Pairs per call of :func:`~areamc.exact.intersection_areas`, between two progress notes.
+_EXACT_BLOCK = 4096
+
+
+def _exact_pairs(planar_a, planar_b, pairs, meter: JobMeter) -> np.ndarray:
+    """shapely's intersection area (m²) of every candidate pair, a block of pairs at a time (the areas are
+    those of one call: each pair's is computed on its own)."""
+    n = pairs.shape[1]
+    parts = []
+    for first in range(0, n, _EXACT_BLOCK):
+        meter(0, f"exact intersection areas ({first:,} of {n:,} pairs)")
+        block = pairs[:, first:first + _EXACT_BLOCK]
+        parts.append(intersection_areas(planar_a[block[0]], planar_b[block[1]]))
+    return np.concatenate(parts)
 
 
 def _overlap_item(job: _OverlapJob, n: int):
@@ -308,7 +366,7 @@ def _overlap_item(job: _OverlapJob, n: int):
     the multiplicity profile and its exact status.  Runs in any process."""
     if n == _PROFILE_ITEM:
         return _profile(job.a, job.stop, job.confidence, job.streams, job.sampler, job.chunk, job.exact,
-                        job.exact_time_limit_s)
+                        job.exact_time_limit_s, job.meter)
     a, other, confidence = job.a, job.other, job.confidence
     i, j = (int(v) for v in job.pairs[:, n])
     ga, gb = a.planar[i], other.planar[j]
@@ -337,8 +395,9 @@ def _overlap_item(job: _OverlapJob, n: int):
     return row, (i, j)
 
 
-def _profile(layer, stop, confidence, streams, sampler, chunk, exact, limit_s):
-    """Area covered by exactly / at least k zones, sampled in the layer's bounding box."""
+def _profile(layer, stop, confidence, streams, sampler, chunk, exact, limit_s, meter=None):
+    """Area covered by exactly / at least k zones, sampled in the layer's bounding box; `meter`, when the
+    profile runs in the calling process, hears of its points and of the exact step (no pair done yet)."""
     box = Box.of(shapely.total_bounds(layer.planar))
     index = GridIndex(layer.planar, box)
     top = max(index.max_count, 1)
@@ -348,7 +407,10 @@ def _profile(layer, stop, confidence, streams, sampler, chunk, exact, limit_s):
         lambda x, y: index.counts(x, y)[:, None] >= ks[None, :],
         Stopper(stop, precision=area_precision(box.area, confidence)),
         chunk=chunk,
+        progress=None if meter is None else lambda drawn, _est: meter(0, f"multiplicity profile: {drawn:,} pt"),
     )
+    if meter is not None and exact:
+        meter(0, "exact profile")
     exact_k, status = _exact_profile(layer, exact, limit_s)
     return _profile_rows(run.hits, run.points, box.area, ks, confidence, exact_k), status
 
@@ -503,9 +565,10 @@ class _Tally:
         return size
 
 
-def _shared(job: _OverlapJob, one_layer: bool, with_profile: bool, workers: int):
+def _shared(job: _OverlapJob, one_layer: bool, with_profile: bool, workers: int, meter: JobMeter):
     """Every pair's row and the profile from one sample in the layer's box (for two layers, the
-    intersection of their boxes): ``(rows, pairs, multiplicity, exact profile status)``."""
+    intersection of their boxes): ``(rows, pairs, multiplicity, exact profile status)``.  `meter`
+    counts the sample's points."""
     a, other, pairs, stop, confidence = job.a, job.other, job.pairs, job.stop, job.confidence
     n_pairs = pairs.shape[1]
     if not n_pairs and not with_profile:
@@ -528,24 +591,30 @@ def _shared(job: _OverlapJob, one_layer: bool, with_profile: bool, workers: int)
     seed = child_seed(job.streams, _SHARED_STREAM)
     if stop.adaptive or stop.time_s is not None or workers == 1:
         points, counts, hits, reason, pilot = _shared_run(state, make_sampler(job.sampler, seed, box), stop,
-                                                          confidence, with_profile, job.chunk)
+                                                          confidence, with_profile, job.chunk, meter)
     else:
         size = SPAN_UNIT * max(1, -(-stop.points // (4 * workers * SPAN_UNIT)))
         spans = [(first, min(size, stop.points - first)) for first in range(0, stop.points, size)]
-        parts = map_ordered(_shared_span, spans, workers, shared=(state, job.sampler, seed, box, job.chunk, stop))
+        parts = map_ordered(_shared_span, spans, workers, shared=(state, job.sampler, seed, box, job.chunk, stop),
+                            done=None if meter.progress is None else
+                            lambda k, _part: meter(spans[k][0] + spans[k][1], "shared sample"))
         points, reason, pilot = stop.points, BUDGET, 0
         counts = np.sum([c for c, _ in parts], axis=0, dtype=np.int64)
         hits = np.sum([h for _, h in parts], axis=0, dtype=np.int64)
     rows, kept = _shared_rows(job, box, points, counts, reason, pilot)
     multiplicity, status = (), NOT_ASKED
     if with_profile:
+        if job.exact:
+            meter(points + pilot, "exact profile")
         exact_k, status = _exact_profile(a, job.exact, job.exact_time_limit_s)
         multiplicity = _profile_rows(hits, points, box.area, ks, confidence, exact_k)
     return rows, kept, multiplicity, status
 
 
-def _shared_run(state: _SharedCount, sampler, stop: StopRule, confidence: float, with_profile: bool, chunk: int):
-    """One run of the engine over the shared sample: ``(points, pair counts, column hits, stop reason, pilot)``.
+def _shared_run(state: _SharedCount, sampler, stop: StopRule, confidence: float, with_profile: bool, chunk: int,
+                meter: JobMeter | None = None):
+    """One run of the engine over the shared sample: ``(points, pair counts, column hits, stop reason, pilot)``;
+    `meter` hears of the points drawn (pilot included) after each chunk.
 
     A precision target is judged on every candidate pair's Wilson half-width
     (and on every profile column), all in the one box.
@@ -559,7 +628,9 @@ def _shared_run(state: _SharedCount, sampler, stop: StopRule, confidence: float,
         pairs = zip((box_area * (high - low) / 2).tolist(), (box_area * tally.counts / points).tolist())
         return (columns(sums, sumsq, points) if with_profile else []) + list(pairs)
 
-    run = accumulate(sampler.random, tally, Stopper(stop, precision=precision), chunk=chunk, on_final=tally.restart)
+    report = None if meter is None or meter.progress is None else lambda drawn, *_: meter(drawn, "shared sample")
+    run = accumulate(sampler.random, tally, Stopper(stop, precision=precision), chunk=chunk, on_final=tally.restart,
+                     progress=report)
     return run.points, tally.counts, run.sums, run.reason, run.pilot_points
 
 

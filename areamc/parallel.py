@@ -55,6 +55,8 @@ __all__ = [
     "workers_for_source",
     "fixed_count_sums",
     "WorkerTraceback",
+    "JobProgress",
+    "JobMeter",
 ]
 
 #: Most worker processes one job may start (parameter ``workers``); more only cost memory.
@@ -177,6 +179,57 @@ def map_ordered(
             param="workers"), stacklevel=2)
         return map_ordered(fn, items, 1, shared=shared, setup=setup, done=done)
     return _run_pool(fn, items, count, context, shared, setup, done)
+
+
+#: ``progress(done, total, unit, note)``: how far a job over many items has got (parameter ``progress`` of
+#: :func:`~areamc.overlap.estimate_overlaps`, :func:`~areamc.coverage.estimate_coverage` and
+#: :func:`~areamc.integrate.integrate_density`).  `done` of `total` units are finished, `unit` saying
+#: what they are: ``"pair"``, ``"region"``, or ``"pt"`` for the points of one long estimate (overlap's
+#: shared sample; `total` is None when a precision target decides the points).  `note` names the item
+#: just finished or the step now running (``"exact intersection areas"``, ``"r3: exact shares"``,
+#: ``"exact profile"``).  See :class:`JobMeter`.
+JobProgress = Callable[[int, "int | None", str, str], None]
+
+
+class JobMeter:
+    """One job's reports to a :data:`JobProgress` callback (or to none): its `total` and `unit` are fixed.
+
+    The job calls the meter with ``(done, note)``: first with 0, then as
+    items finish (:meth:`items`, in item order, from this process) and,
+    while items run in this process, between the steps of an item (exact
+    checks, chunks of points) with `done` unchanged.  So `done` never falls
+    and, once the job is through, equals `total` (unless a time limit
+    stopped a run early).  Reports never change a result: nothing they see
+    feeds back into sampling.  Nothing here depends on units or CRSs.
+    """
+
+    def __init__(self, progress: JobProgress | None, total: int | None, unit: str) -> None:
+        self.progress = progress
+        self.total = total
+        self.unit = unit
+
+    def __call__(self, done: int, note: str = "") -> None:
+        if self.progress is not None:
+            self.progress(int(done), self.total, self.unit, note)
+
+    def here(self, workers: int, items: int) -> "JobMeter | None":
+        """The meter for the items themselves when :func:`map_ordered` runs `items` items in this process
+        (one worker, one item, or already inside a worker), else None: a worker cannot report here."""
+        if self.progress is None or not (min(workers, items) <= 1 or _IN_WORKER):
+            return None
+        return self
+
+    def items(self, label: Callable[[int], str], skip: int = 0) -> Callable[[int, Any], None] | None:
+        """A `done` callback for :func:`map_ordered`: item ``k`` finished is reported as ``k + 1 - skip``
+        done, noted ``label(k)``; the first `skip` items (not counted, such as overlap's multiplicity
+        profile) only change the note."""
+        if self.progress is None:
+            return None
+
+        def done(k: int, _result) -> None:
+            self(max(0, k + 1 - skip), label(k))
+
+        return done
 
 
 def _start_method():

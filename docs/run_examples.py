@@ -4,7 +4,9 @@
 outputs in place from a fresh run; ``--page README.md`` (repeatable) restricts the
 run to some pages.  Exit status: 0 when every block is up to date (or was
 rewritten), 1 when some block drifted (each is listed with its page, line and a
-unified diff), 2 when a block cannot be run or placed (nothing is written then).
+unified diff), 2 when some block cannot be checked: its command is refused or fails,
+or its shown lines no longer fit the output.  Such a block is named and left as it
+is; ``--write`` still rewrites the others.
 The test suite runs the check (tests/test_tooling.py).
 
 Two kinds of example, one mechanism:
@@ -33,8 +35,11 @@ with the same number of consecutive lines of the fresh output:
   the run's first shown line (its row id: ``D04``, ``id``, ``claim:``), or from the
   first later line equal to that shown line when there is one.
 
-Every ``...`` keeps its place and must still stand for at least one line.  A
-block without ``...`` shows the whole output.
+Every ``...`` keeps its place and must still stand for at least one line, and each
+refilled line must begin with the same word as the shown line it replaces (row ids
+and headings stay in place).  Otherwise the output has changed shape and the block
+is refused: delete its ``...`` lines, run ``--write``, and cut it again.  A block
+without ``...`` shows the whole output.
 """
 
 from __future__ import annotations
@@ -238,20 +243,29 @@ def run_python(examples: list[Example]) -> list[str]:
     return printed
 
 
-def fresh_outputs(examples: list[Example], runner: Runner = run_subprocess) -> list[str]:
-    """What each example prints now, in order (Python examples all run, in one namespace)."""
+def fresh_outputs(examples: list[Example], runner: Runner = run_subprocess) -> list[str | ExampleError]:
+    """What each example prints now, in order, or the error that stopped it.
+
+    Python examples all run, in one namespace: an error in one stops the page (it is raised).
+    A shell example that is refused or fails gets its error, and the others still run.
+    """
     python = [ex for ex in examples if ex.kind == "python"]
     printed = iter(run_python(python))
-    out = []
+    out: list[str | ExampleError] = []
     for ex in examples:
         if ex.kind == "python":
             out.append(next(printed))
             continue
-        done = runner(command_args(ex))
+        try:
+            done = runner(command_args(ex))
+        except ExampleError as err:
+            out.append(err)
+            continue
         if done.status != 0:
-            raise ExampleError(f"{ex.where}: `{ex.source}` exited with status {done.status}: "
-                               f"{done.stderr.strip()[-2000:]}")
-        out.append(done.stdout)
+            out.append(ExampleError(f"{ex.where}: `{ex.source}` exited with status {done.status}: "
+                                    f"{done.stderr.strip()[-2000:]}"))
+        else:
+            out.append(done.stdout)
     return out
 
 
@@ -293,32 +307,57 @@ def refill(shown: str, fresh: str, where: str = "block") -> str:
     for i, (run, start) in enumerate(zip(runs, starts)):
         if i:
             pieces.append(ELISION)
-        pieces.extend(out_lines[start:start + len(run)])
+        for old, new in zip(run, out_lines[start:start + len(run)]):
+            if _first_word(old) != _first_word(new):
+                raise ExampleError(f"{where}: the output changed shape: the shown line {old!r} would become "
+                                   f"{new!r}; delete the block's '...' lines, run --write, and cut it again")
+            pieces.append(new)
     return "\n".join(pieces) + "\n"
+
+
+def _first_word(line: str) -> str:
+    words = line.split()
+    return words[0] if words else ""
 
 
 def _anchor(first: str, out_lines: list[str], floor: int, where: str) -> int:
     """Where a middle run starts: the first line from `floor` equal to `first`, else the first with its first word."""
     if first in out_lines[floor:]:
         return out_lines.index(first, floor)
-    word = first.split()[0] if first.split() else ""
+    word = _first_word(first)
     for n in range(floor, len(out_lines)):
-        line_words = out_lines[n].split()
-        if (line_words[0] if line_words else "") == word:
+        if _first_word(out_lines[n]) == word:
             return n
     raise ExampleError(f"{where}: no output line after the lines shown above it starts with {word!r} "
                        f"(shown: {first!r}); edit the block")
 
 
-def check_page(page: str, text: str, runner: Runner = run_subprocess) -> tuple[list[Example], list[Drift], str]:
-    """(examples, drifted blocks, the page as --write would write it) for one page's text."""
+@dataclass(frozen=True)
+class PageCheck:
+    """One page checked: its examples, the drifted blocks, the blocks that could not be checked, and
+    the page as --write writes it (drifted blocks rewritten; the others, and all prose, as they were)."""
+
+    examples: list[Example]
+    drifts: list[Drift]
+    errors: list[ExampleError]
+    text: str
+
+
+def check_page(page: str, text: str, runner: Runner = run_subprocess) -> PageCheck:
+    """Check one page's text (`page` is its key in :data:`PAGES`)."""
     examples = find_examples(page, text)
     outputs = fresh_outputs(examples, runner)
-    drifts, pieces, last = [], [], 0
+    drifts, errors, pieces, last = [], [], [], 0
     for ex, out in zip(examples, outputs):
         if ex.shown is None:
             continue
-        expected = refill(ex.shown, out, ex.where)
+        try:
+            if isinstance(out, ExampleError):
+                raise out
+            expected = refill(ex.shown, out, ex.where)
+        except ExampleError as err:
+            errors.append(err)
+            continue
         pieces += [text[last:ex.span[0]], expected]
         last = ex.span[1]
         if expected != ex.shown:
@@ -327,7 +366,7 @@ def check_page(page: str, text: str, runner: Runner = run_subprocess) -> tuple[l
                 fromfile=f"{ex.where} (shown)", tofile=f"{ex.where} (program prints)"))
             drifts.append(Drift(ex, expected, diff))
     pieces.append(text[last:])
-    return examples, drifts, "".join(pieces)
+    return PageCheck(examples, drifts, errors, "".join(pieces))
 
 
 def _page_key(name: str) -> str:
@@ -340,40 +379,44 @@ def _page_key(name: str) -> str:
 def main(argv: list[str] | None = None, runner: Runner = run_subprocess) -> int:
     parser = argparse.ArgumentParser(prog="python docs/run_examples.py",
                                      description="Check (or with --write rewrite) every example output of the docs.")
-    parser.add_argument("--write", action="store_true", help="rewrite the shown outputs from a fresh run")
+    parser.add_argument("--write", action="store_true", help="rewrite the drifted outputs from a fresh run")
     parser.add_argument("--page", action="append", metavar="PAGE",
                         help=f"only this page (repeatable; default every page: {', '.join(PAGES)})")
     args = parser.parse_args(argv)
+    checks: dict[str, tuple[str, PageCheck]] = {}
     try:
         pages = [_page_key(name) for name in args.page] if args.page else list(PAGES)
-        results = {}
         for page in pages:
             text = open(os.path.join(ROOT, page), encoding="utf-8").read()
-            results[page] = (text, *check_page(page, text, runner))
+            checks[page] = (text, check_page(page, text, runner))
     except ExampleError as err:
         print(f"run_examples: error: {err}", file=sys.stderr)
         return 2
+    errors = [err for _, check in checks.values() for err in check.errors]
+    drifted = [d for _, check in checks.values() for d in check.drifts]
     if args.write:
-        for page, (text, _, drifts, new_text) in results.items():
-            if not drifts:
+        for page, (text, check) in checks.items():
+            if not check.drifts:
                 continue
             path = os.path.join(ROOT, page)
             if open(path, encoding="utf-8").read() != text:
                 print(f"run_examples: error: {page} changed while the examples ran; run again", file=sys.stderr)
                 return 2
             with open(path, "w", encoding="utf-8") as handle:
-                handle.write(new_text)
-            print(f"{page}: rewrote {len(drifts)} block(s) at line(s) "
-                  f"{', '.join(str(d.example.line) for d in drifts)}")
-        return 0
-    drifted = [d for (_, _, drifts, _) in results.values() for d in drifts]
-    for drift in drifted:
-        print(f"{drift.example.where}: the shown output differs from what `{drift.example.source.splitlines()[0]}` "
-              f"prints now:\n{drift.diff}", file=sys.stderr)
-    total = sum(len(examples) for (_, examples, _, _) in results.values())
-    print(f"{total} example(s) on {len(results)} page(s); {len(drifted)} drifted"
-          + ("; rerun with --write to update them" if drifted else ""), file=sys.stderr)
-    return 1 if drifted else 0
+                handle.write(check.text)
+            print(f"{page}: rewrote {len(check.drifts)} block(s) at line(s) "
+                  f"{', '.join(str(d.example.line) for d in check.drifts)}")
+    else:
+        for drift in drifted:
+            print(f"{drift.example.where}: the shown output differs from what "
+                  f"`{drift.example.source.splitlines()[0]}` prints now:\n{drift.diff}", file=sys.stderr)
+    for err in errors:
+        print(f"run_examples: error: {err} (block left as it is)", file=sys.stderr)
+    total = sum(len(check.examples) for _, check in checks.values())
+    print(f"{total} example(s) on {len(checks)} page(s); {len(drifted)} drifted"
+          + (" and rewritten" if args.write else "; rerun with --write to update them" if drifted else "")
+          + (f"; {len(errors)} could not be checked" if errors else ""), file=sys.stderr)
+    return 2 if errors else 1 if drifted and not args.write else 0
 
 
 if __name__ == "__main__":

@@ -45,10 +45,11 @@ def test_doc_examples__every_block__shows_what_the_program_prints(page):
     run = _examples()
     assert set(run.PAGES) == set(_MIN_EXAMPLES)
     text = (ROOT / page).read_text(encoding="utf-8")
-    examples, drifts, _ = run.check_page(page, text, runner=run.run_in_process)
-    assert len([ex for ex in examples if ex.shown is not None]) >= _MIN_EXAMPLES[page]
-    assert not drifts, "run `python docs/run_examples.py --write`; drifted blocks:\n" + "\n".join(
-        f"{d.example.where}\n{d.diff}" for d in drifts)
+    check = run.check_page(page, text, runner=run.run_in_process)
+    assert len([ex for ex in check.examples if ex.shown is not None]) >= _MIN_EXAMPLES[page]
+    assert not check.errors, "\n".join(str(err) for err in check.errors)
+    assert not check.drifts, "run `python docs/run_examples.py --write`; drifted blocks:\n" + "\n".join(
+        f"{d.example.where}\n{d.diff}" for d in check.drifts)
 
 
 def test_doc_examples__in_process_run__prints_what_the_subprocess_prints():
@@ -85,7 +86,7 @@ $ areamc area a.gpkg \\
     --seed 1
 areamc area: a.gpkg
 ...
-last
+total 1
 ```
 """
 
@@ -97,14 +98,15 @@ def _fake(outputs):
 
 def test_doc_examples__fake_program__drifted_bodies_rewritten_prose_kept():
     run = _examples()
-    outputs = {"inspect a.gpkg": "new\n", "area a.gpkg --seed 1": "areamc area: a.gpkg\nrow 1\nrow 2\nfinal\n"}
-    examples, drifts, written = run.check_page("README.md", _PAGE, runner=_fake(outputs))
-    assert [(ex.line, ex.source) for ex in examples] == [(8, "areamc inspect a.gpkg"),
-                                                        (12, "areamc area a.gpkg --seed 1")]
-    assert [d.example.where for d in drifts] == ["README.md:8", "README.md:12"]
-    assert "-old\n+new\n" in drifts[0].diff and "-last\n+final\n" in drifts[1].diff
-    assert written == _PAGE.replace("old\n", "new\n").replace("last\n", "final\n")
-    assert run.check_page("README.md", written, runner=_fake(outputs))[1] == []
+    outputs = {"inspect a.gpkg": "new\n", "area a.gpkg --seed 1": "areamc area: a.gpkg\nrow 1\nrow 2\ntotal 2\n"}
+    check = run.check_page("README.md", _PAGE, runner=_fake(outputs))
+    assert [(ex.line, ex.source) for ex in check.examples] == [(8, "areamc inspect a.gpkg"),
+                                                              (12, "areamc area a.gpkg --seed 1")]
+    assert [d.example.where for d in check.drifts] == ["README.md:8", "README.md:12"] and not check.errors
+    assert "-old\n+new\n" in check.drifts[0].diff and "-total 1\n+total 2\n" in check.drifts[1].diff
+    assert check.text == _PAGE.replace("old\n", "new\n").replace("total 1\n", "total 2\n")
+    again = run.check_page("README.md", check.text, runner=_fake(outputs))
+    assert again.drifts == [] and again.text == check.text
 
 
 OUT = "h1\nh2\n\nid a\nD01 1 x\nD01 2 x\nD02 1 y\nD02 2 y\nD03 1 z\n\nfoot\n"
@@ -112,7 +114,7 @@ OUT = "h1\nh2\n\nid a\nD01 1 x\nD01 2 x\nD02 1 y\nD02 2 y\nD03 1 z\n\nfoot\n"
 
 @pytest.mark.parametrize("shown, expected", [
     ("anything\n", OUT),                                                   # no "...": the whole output
-    ("h1\nold\n...\nfoot\n", "h1\nh2\n...\nfoot\n"),                   # top run from the top, last from the end
+    ("h1\nh2 old\n...\nfoot\n", "h1\nh2\n...\nfoot\n"),                # top run from the top, last from the end
     ("...\nid b\nD01 1 w\n...\n", "...\nid a\nD01 1 x\n...\n"),        # middle run: first line with its first word
     ("h1\n...\nD02 2 y\n...\nfoot\n", "h1\n...\nD02 2 y\n...\nfoot\n"),  # an equal line wins over the first D02
     ("h1\n...\nD02 9 q\n...\n\nfoot\n", "h1\n...\nD02 1 y\n...\n\nfoot\n"),
@@ -127,6 +129,7 @@ def test_refill__elided_blocks__keep_their_runs_and_elisions(shown, expected):
     ("...\nD09 1\n...\n", "starts with 'D09'"),                          # no such row
     ("h1\nh2\n\nid a\nD01 1 x\n...\nD01 2 x\nD02 1 y\nD02 2 y\nD03 1 z\n\nfoot\n", "no room"),  # "..." = no line
     ("\n".join(["x"] * 12) + "\n...\nfoot\n", "no room"),                 # more shown lines than printed
+    ("h1\nh2\n\nD01 1 x\n...\nfoot\n", "changed shape"),                # a row id would land on a heading
 ])
 def test_refill__lines_that_cannot_be_placed__refused(shown, match):
     run = _examples()
@@ -153,8 +156,16 @@ def test_command_args__seeded_or_non_sampling_commands__accepted():
         assert run.command_args(run.Example("README.md", 1, "shell", command, "", (0, 0))) == command.split()[1:]
 
 
-def test_doc_examples__failing_command__refused_naming_its_line():
+def test_doc_examples__failing_command__named_with_its_line_and_left_as_it_is():
     run = _examples()
-    failing = lambda args: run.Completed(2, "", "areamc: error: a.gpkg: no such file")  # noqa: E731
-    with pytest.raises(run.ExampleError, match=r"README\.md:8: .* exited with status 2: areamc: error: a\.gpkg"):
-        run.check_page("README.md", _PAGE, runner=failing)
+    outputs = {"area a.gpkg --seed 1": "areamc area: a.gpkg\nrow 1\ntotal 2\n"}
+
+    def runner(args):
+        if args[0] == "inspect":
+            return run.Completed(2, "", "areamc: error: a.gpkg: no such file")
+        return _fake(outputs)(args)
+
+    check = run.check_page("README.md", _PAGE, runner=runner)
+    assert [str(err) for err in check.errors] == [
+        "README.md:8: `areamc inspect a.gpkg` exited with status 2: areamc: error: a.gpkg: no such file"]
+    assert check.text == _PAGE.replace("total 1\n", "total 2\n")  # the other block is still rewritten

@@ -3,7 +3,8 @@
 
 from __future__ import annotations
 
-from ..area import estimate_areas
+from ..area import AreaReport, estimate_areas
+from ..frames import table_columns
 from ..load import read_layer
 from ..output import Column, OutputBatch, render, write_text
 from ..project import project_layer
@@ -44,16 +45,8 @@ COLUMNS = (
     Column("z", spec=".2f"),
     Column("flagged"),
 )
-TRACE_COLUMNS = (
-    Column("id"),
-    Column("feature_index"),
-    Column("points"),
-    Column("hits"),
-    Column("estimate", area=True),
-    Column("std_error", area=True),
-    Column("ci_low", area=True),
-    Column("ci_high", area=True),
-)
+#: The --trace file's columns: every field of the running estimates, areas marked by the library.
+TRACE_COLUMNS = table_columns(AreaReport, "trace")
 
 
 def _header(args, report, layer) -> list[str]:
@@ -65,7 +58,7 @@ def _footer(args, report, rows) -> list[str]:
     return [] if args.no_exact else ["", flag_line(report.rows, "planar area")]
 
 
-SCREEN = Screen(COLUMNS, COLUMNS + (Column("box_area", area=True),), _header, _footer)
+SCREEN = Screen(COLUMNS, table_columns(AreaReport), _header, _footer)  # fields: every row field, areas marked
 
 
 def add_parser(sub) -> None:

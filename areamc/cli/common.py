@@ -14,7 +14,7 @@ from .. import __version__
 from ..checks import FLAG_Z
 from ..engine import DEFAULT_CHUNK
 from ..errors import OptionError
-from ..output import FORMATS, Column, check_output_path, convert_rows, render, write_text
+from ..output import FORMATS, Column, check_output_path, convert_rows, render, wrap, write_text
 from ..parallel import usable_cores
 from ..project import DEFAULT_DENSIFY_M
 from ..samplers import SAMPLERS
@@ -351,13 +351,13 @@ def add_layer_options(parser: argparse.ArgumentParser, *, prefix: str = "", what
     """
     parser.add_argument(f"--{prefix}layer", metavar="NAME",
                         help=f"layer of {what} to read, for files with several layers (default: the first, "
-                        "with a notice naming it)")
+                        "with a note naming it)")
     parser.add_argument(f"--{prefix}id-field", metavar="FIELD",
                         help=f"attribute of {what} whose values label its features in the results "
-                        "(default: the feature id; `areamc inspect` lists the attributes)")
+                        "(default: the feature id; areamc inspect lists the attributes)")
     parser.add_argument(f"--{prefix}input-crs", metavar="CRS",
-                        help=f"CRS of {what}'s coordinates when the file declares none (EPSG code, PROJ string "
-                        "or WKT); it never overrides a declared CRS")
+                        help=f"CRS to read {what}'s coordinates in (EPSG code, PROJ string or WKT): needed when "
+                        "the file declares none; one that differs from a declared CRS overrides it, with a warning")
     parser.add_argument(f"--{prefix}input-encoding", metavar="NAME",
                         help=f"text encoding of {what}'s attributes, such as latin-1, when the file declares "
                         "a wrong one (default: the file's own, e.g. a Shapefile's .cpg)")
@@ -414,10 +414,11 @@ DEFAULT_UNITS = "km2"
 
 def add_output_options(parser: argparse.ArgumentParser, *, units: str = "areas", features: bool = True,
                        progress: bool = False) -> None:
-    """``--format``, ``--output``, ``--units``, ``--verbose``, and ``--quiet`` where a progress bar shows.
+    """``--format``, ``--output``, ``--units``, ``--quiet`` and ``--verbose``.
 
     `units` says what ``--units`` applies to (``"areas"``, or ``"density"`` for integrate's mean
-    density); `features` whether ``--output`` also takes .gpkg and .geojson.
+    density); `features` whether ``--output`` also takes .gpkg and .geojson; `progress` whether the
+    command shows a progress bar (area, overlap, coverage, integrate), which ``--quiet`` then hides too.
     """
     kinds = ".csv, .json, or .gpkg/.geojson for the features with their results" if features else ".csv or .json"
     parser.add_argument("--format", choices=FORMATS,
@@ -444,8 +445,8 @@ def plane_lines(plane) -> list[str]:
 def header_lines(command: str, sources: str, run, method: str, units: str) -> list[str]:
     """The header every command's table starts with: what was read, the plane, the interval method,
     the seed and the units (one copy for all commands)."""
-    return [f"areamc {command}: {sources}", *plane_lines(run.plane),
-            f"{run.confidence:.4g} {method}; seed {run.seed_entropy}; {units}", ""]
+    return [*wrap(f"areamc {command}: {sources}"), *plane_lines(run.plane),
+            *wrap(f"{run.confidence:.4g} {method}; seed {run.seed_entropy}; {units}"), ""]
 
 
 #: The caution carried by results that could inform decisions on safety (README, "Caution").

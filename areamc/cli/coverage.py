@@ -5,7 +5,8 @@ from __future__ import annotations
 
 import argparse
 
-from ..coverage import COMPUTED, estimate_coverage
+from ..coverage import COMPUTED, CoverageReport, estimate_coverage
+from ..frames import table_columns
 from ..density import build_density
 from ..errors import OptionError
 from ..output import Column, table, wrap
@@ -14,6 +15,7 @@ from ..samplers import interval_method
 from ..project import project_layers
 from ..sequential import FALLS_SHORT, MEETS, UNDECIDED, check_claim
 from .density_options import add_density_options, density_metadata, read_density_option
+from .progress import JobBar
 from .common import (
     Screen,
     add_layer_options,
@@ -80,12 +82,8 @@ POPULATION_COLUMNS = (
     Column("population_share_ci_high", "share_ci_high", spec=".4f", error=_POP),
     Column("population_exact_share", "exact_share", spec=".4f", error=_POP),
 )
-ALL_FIELDS = COLUMNS + WIDE_COLUMNS + (
-    Column("region_area", area=True),
-    Column("covered_area", area=True),
-    Column("area_below_k_ci_low", area=True),
-    Column("area_below_k_ci_high", area=True),
-)  # with the table's columns: every field that holds an area, for unit conversion
+#: Every field of the rows (the population_* ones too), areas marked by the library: for unit conversion.
+ALL_FIELDS = table_columns(CoverageReport)
 
 #: What each verdict token means (the table legend spells them out).
 VERDICTS = {
@@ -131,7 +129,7 @@ def add_parser(sub) -> None:
                    help="time allowed per region for the exact shares at k >= 2 (default 10)")
     p.add_argument("--wide", action="store_true",
                    help="also show each row's region_points (points that fell in the region) and hits")
-    add_output_options(p)
+    add_output_options(p, progress=True)
     p.set_defaults(run=run)
 
 
@@ -196,8 +194,7 @@ def _caveat(args) -> str | None:
     return caveat(reach=bool(zones is not None and zones.reach_circles), claim=args.claim is not None)
 
 
-CLAIM_FIELDS = (Column("claim"), Column("verdict"))
-SCREEN = Screen(COLUMNS, ALL_FIELDS + CLAIM_FIELDS + POPULATION_COLUMNS, _header, _footer)
+SCREEN = Screen(COLUMNS, ALL_FIELDS, _header, _footer)
 
 
 def run(args) -> int:
@@ -216,6 +213,7 @@ def run(args) -> int:
     density = None
     if spec is not None:
         density = build_density(spec, projected[0].plane, projected[2] if len(projected) > 2 else None, projected[0])
+    bar = JobBar(args.quiet)
     try:
         report = estimate_coverage(
             projected[0],
@@ -232,8 +230,10 @@ def run(args) -> int:
             density=density,
             importance=not args.no_importance,
             workers=args.workers,
+            progress=bar,
         )
     finally:
+        bar.close()
         if hasattr(density, "close"):
             density.close()
     rows = [r.to_dict(population=density is not None) for r in report.rows]

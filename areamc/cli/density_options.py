@@ -15,7 +15,7 @@ __all__ = ["add_density_options", "read_density_option", "density_metadata"]
 def add_density_options(parser: argparse.ArgumentParser, *, required: bool) -> None:
     parser.add_argument("--density", required=required, metavar="SOURCE",
                         help="a block layer with --count-field, a raster (GeoTIFF), or an expression giving "
-                        "a density per m² in lon, lat (WGS84 degrees), east, north (metres east and north of "
+                        "a density per m2 in lon, lat (WGS84 degrees), east, north (metres east and north of "
                         "--origin) or x, y (metres on the computation plane from its origin, which moves with the "
                         "data unless --plane-crs names the plane)")
     parser.add_argument("--density-kind", choices=("auto", "blocks", "raster", "expression"), default="auto",

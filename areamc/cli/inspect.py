@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from ..describe import describe_layer
+from ..describe import AREA_FIELDS, describe_layer
 from ..errors import OptionError
 from ..load import read_layer
 from ..output import WIDTH, Column, render, render_fields, wrap, write_text
@@ -23,9 +23,11 @@ DESCRIPTION = """\
 Describe what FILE holds before estimating anything: its layers, features and geometry types, its
 CRS and extent, the invalid geometries areamc repairs and the empty ones it skips, the equal-area
 plane areamc would compute in with its measured area distortion, the total exact planar and
-geodesic areas, and its attribute fields (type, distinct and missing values, and whether a field
-is unique, so that it can serve as --id-field). Repeated --id-field values are not refused here,
-only warned about."""
+geodesic areas (true areas on the WGS84 ellipsoid, the ones areamc reports) and, for a layer in a
+projected CRS in metres or feet such as a national grid, its total grid area measured in that CRS,
+and its attribute fields (type, distinct and missing values, and whether a field is unique, so
+that it can serve as --id-field). Repeated --id-field values are not refused here, only warned
+about."""
 
 
 LABELS = {
@@ -47,8 +49,10 @@ LABELS = {
     "area_distortion": "area distortion",
     "exact_planar_total": "total exact planar area",
     "geodesic_total": "total geodesic area",
+    "planar_total_in_layer_crs": "total grid area (layer CRS)",
 }
-AREA_FIELDS = ("exact_planar_total", "geodesic_total")
+#: The line under the totals when the grid area is shown: which area is which (docs/methods.md §5).
+WHICH_AREA = "grid area: measured in the layer's CRS; exact planar, geodesic: true WGS84 areas, as areamc reports"
 #: Decimals of the extent in the table, by the layer CRS's unit: 6 for degrees (about 0.1 m on the
 #: ground), 1 for linear units (a tenth of a metre or foot); JSON and CSV keep the full floats.
 EXTENT_DECIMALS = {"degree": 6, "grad": 6, "radian": 8}
@@ -117,11 +121,14 @@ def table_text(info: dict, units: str) -> str:
     shown["extent_lonlat"] = extent_text(info["extent_lonlat"], "degree")
     shown["plane"] = plane_text(info["plane"])
     shown["area_distortion"] = f"{info['plane']['area_distortion']:.2g}"
-    indent = " " * (max(len(label) for label in LABELS.values()) + 2)
+    grid = info.get("planar_total_in_layer_crs") is not None
+    labels = {k: v for k, v in LABELS.items() if grid or k != "planar_total_in_layer_crs"}
+    indent = " " * (max(len(label) for label in labels.values()) + 2)
     lines = []
-    for line in render_fields(shown, LABELS, AREA_FIELDS, units).splitlines():
+    for line in render_fields(shown, labels, AREA_FIELDS, units).splitlines():
         lines += wrap(line, indent) if len(line) > WIDTH else [line]
-    return "\n".join([*lines, "", *fields_table(info["fields"], info["kept"])]) + "\n"
+    note = ["", *wrap(WHICH_AREA)] if grid else []
+    return "\n".join([*lines, *note, "", *fields_table(info["fields"], info["kept"])]) + "\n"
 
 
 def csv_cell(value):

@@ -4,9 +4,10 @@ from __future__ import annotations
 
 
 from ..density import build_density
-from ..integrate import integrate_density
+from ..frames import table_columns
+from ..integrate import TIMED_OUT, IntegrateReport, integrate_density
 from ..load import read_layer
-from ..output import Column
+from ..output import Column, wrap
 from ..project import project_layers
 from .common import (
     Screen,
@@ -17,6 +18,7 @@ from .common import (
     add_worker_options,
     check_outputs,
     density_file,
+    positive_float,
     flag_line,
     header_lines,
     input_flags,
@@ -26,6 +28,7 @@ from .common import (
     stop_rule,
 )
 from .density_options import add_density_options, density_metadata, read_density_option
+from .progress import JobBar
 
 DESCRIPTION = """\
 Estimate, for every region in REGIONS, the total of a density over its area: a population from
@@ -54,7 +57,8 @@ COLUMNS = (
 )
 #: Columns shown only with ``--wide``.
 WIDE_COLUMNS = (Column("points"), Column("method"))
-ALL_FIELDS = COLUMNS + WIDE_COLUMNS + (Column("region_area", area=True),)
+#: Every field of the rows, areas and per-area densities marked by the library: for unit conversion.
+ALL_FIELDS = table_columns(IntegrateReport)
 
 
 def add_parser(sub) -> None:
@@ -67,9 +71,11 @@ def add_parser(sub) -> None:
     add_sampling_options(p, tolerance="count", samplers="uniform")
     add_worker_options(p)
     p.add_argument("--no-exact", action="store_true", help="skip the exact totals (areal weighting, cell fractions)")
+    p.add_argument("--exact-budget", type=positive_float, default=10.0, metavar="SECONDS",
+                   help="time allowed per region for the exact total (default 10)")
     p.add_argument("--wide", action="store_true",
                    help="also show each row's points and sampling method")
-    add_output_options(p, units="density")
+    add_output_options(p, units="density", progress=True)
     p.set_defaults(run=run)
 
 
@@ -86,9 +92,11 @@ def _header(args, report, inputs) -> list[str]:
 def _footer(args, report, rows) -> list[str]:
     if args.no_exact:
         return ["", "exact totals skipped (--no-exact)"]
+    late = sorted({rid for rid, status in report.exact_status.items() if status == TIMED_OUT})
+    note = wrap(f"exact totals not computed within --exact-budget for: {', '.join(late)}") if late else []
     if not any(r.exact is not None for r in report.rows):
-        return ["", "no exact total for this density source"]
-    return ["", flag_line(report.rows, "total")]
+        return ["", *(note or ["no exact total for this density source"])]
+    return ["", flag_line(report.rows, "total"), *note]
 
 
 SCREEN = Screen(COLUMNS, ALL_FIELDS, _header, _footer)
@@ -103,11 +111,14 @@ def run(args) -> int:
     layers = [regions] + ([spec.blocks] if spec.blocks is not None else [])
     projected = project_layers(layers, crs=args.crs, densify_m=args.densify)
     source = build_density(spec, projected[0].plane, projected[1] if len(projected) > 1 else None, projected[0])
+    bar = JobBar(args.quiet)
     try:
         report = integrate_density(projected[0], source, stop=stop, confidence=args.confidence, seed=args.seed,
                                    sampler=args.sampler, chunk=args.chunk, importance=not args.no_importance,
-                                   exact=not args.no_exact, workers=args.workers)
+                                   exact=not args.no_exact, exact_time_limit_s=args.exact_budget,
+                                   workers=args.workers, progress=bar)
     finally:
+        bar.close()
         if hasattr(source, "close"):
             source.close()
     rows = [r.to_dict() for r in report.rows]

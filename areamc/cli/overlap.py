@@ -4,7 +4,8 @@ from __future__ import annotations
 
 
 from ..output import Column, convert_rows, table, wrap
-from ..overlap import AUTO, PAIR_SAMPLINGS, SHARED, estimate_overlaps, overlap_geometries
+from ..frames import table_columns
+from ..overlap import AUTO, PAIR_SAMPLINGS, SHARED, OverlapReport, estimate_overlaps, overlap_geometries
 from ..project import project_layers
 from .common import (
     Screen,
@@ -27,6 +28,7 @@ from .common import (
     stop_rule,
     zone_layer,
 )
+from .progress import JobBar
 
 DESCRIPTION = """\
 Estimate, for every pair of zones in ZONES whose outlines meet, the area they share, with its
@@ -71,11 +73,8 @@ PROFILE_COLUMNS = (
     Column("area_at_least_exact", "exact", area=True, error=_AT_LEAST),
     Column("z", spec=".2f"),
 )
-PROFILE_FIELDS = PROFILE_COLUMNS + (
-    Column("area_exactly_ci_low", area=True),
-    Column("area_exactly_ci_high", area=True),
-    Column("area_exactly_exact", area=True),
-)
+#: Every field of the profile, areas marked by the library (the JSON ``multiplicity`` list is converted with it).
+PROFILE_FIELDS = table_columns(OverlapReport, "profile")
 
 
 def _header(args, report, layers) -> list[str]:
@@ -106,7 +105,7 @@ def _footer(args, report, rows) -> list[str]:
     return footer + (["", *wrap(note)] if note else [])
 
 
-SCREEN = Screen(COLUMNS, COLUMNS + (Column("box_area", area=True),), _header, _footer)
+SCREEN = Screen(COLUMNS, table_columns(OverlapReport), _header, _footer)  # fields: every row field, areas marked
 
 
 def add_parser(sub) -> None:
@@ -118,7 +117,7 @@ def add_parser(sub) -> None:
     add_layer_options(p, prefix="other-", what="OTHER", first=False)
     add_zone_options(p)
     add_plane_options(p)
-    add_sampling_options(p)
+    add_sampling_options(p, samplers="uniform")
     add_worker_options(p)
     p.add_argument("--min-share", type=float, default=0.0, metavar="SHARE",
                    help="leave out pairs whose overlap is below this share of both zones' areas (default 0)")
@@ -131,7 +130,7 @@ def add_parser(sub) -> None:
                    "that sample's size; pays off where zones overlap densely); per-pair: each pair sampled in its "
                    "own box (--points per pair; best for small overlaps); auto (default): shared for an absolute "
                    "--tolerance, per-pair otherwise")
-    add_output_options(p)
+    add_output_options(p, progress=True)
     p.set_defaults(run=run)
 
 
@@ -151,21 +150,26 @@ def run(args) -> int:
             layers.append(zone_layer(args, args.other, **layer_options(args, "other_")))
     args._layers = tuple(layers)
     projected = project_layers(layers, crs=args.crs, densify_m=args.densify)
-    report = estimate_overlaps(
-        projected[0],
-        projected[1] if args.other else None,
-        stop=stop,
-        confidence=args.confidence,
-        seed=args.seed,
-        sampler=args.sampler,
-        chunk=args.chunk,
-        min_share=args.min_share,
-        exact=not args.no_exact,
-        profile=not args.no_profile,
-        exact_time_limit_s=args.exact_budget,
-        workers=args.workers,
-        pair_sampling=args.pair_sampling,
-    )
+    bar = JobBar(args.quiet)
+    try:
+        report = estimate_overlaps(
+            projected[0],
+            projected[1] if args.other else None,
+            stop=stop,
+            confidence=args.confidence,
+            seed=args.seed,
+            sampler=args.sampler,
+            chunk=args.chunk,
+            min_share=args.min_share,
+            exact=not args.no_exact,
+            profile=not args.no_profile,
+            exact_time_limit_s=args.exact_budget,
+            workers=args.workers,
+            pair_sampling=args.pair_sampling,
+            progress=bar,
+        )
+    finally:
+        bar.close()
     rows = [r.to_dict() for r in report.rows]
     profile = [m.to_dict() for m in report.multiplicity]
     metadata = {
