@@ -49,7 +49,7 @@ from .errors import AreamcWarning, InputError, LayerError, OptionError
 from .exact import FRACTION_TILE_CELLS, CellFractions, block_total, cell_fractions
 from .expression import Expression, parse_expression
 from .geodesy import authalic_q, eccentricity, latitude_from_q, quadrangle_area
-from .load import Layer, read_layer
+from .load import Layer, gdal_path, read_layer
 from .project import LONLAT, EqualAreaPlane, ProjectedLayer, measure_area_distortion, transformer
 from .samplers import Box
 
@@ -566,6 +566,9 @@ class RasterView:
         None when `deadline` (a ``time.monotonic()`` value) passes first.  The
         region's own fractions (`clip` None) are kept for the view's later calls.
         """
+        if self.transform is None:  # the raster does not reach the region: no cells
+            none = np.zeros(0, dtype=np.int64)
+            return CellFractions((0, 0), none, none, none, none, np.zeros(0))
         if clip is None and "region" in self._fractions:
             return self._fractions["region"]
         geom = self.region if clip is None else shapely.intersection(self.region, clip)
@@ -579,8 +582,7 @@ class RasterView:
         out = np.zeros(len(x))
         if self.transform is None:
             return out
-        rx, ry = self.source._to_raster.transform(x, y)
-        col, row = _apply(~self.transform, np.asarray(rx), np.asarray(ry))
+        col, row = self.to_grid(x, y)
         col = np.floor(col).astype(np.int64)
         row = np.floor(row).astype(np.int64)
         ok = (row >= 0) & (row < self.rates.shape[0]) & (col >= 0) & (col < self.rates.shape[1])
@@ -972,7 +974,7 @@ def guess_density_kind(text: str) -> str:
         For a path with a raster or vector extension that does not exist.
     """
     lower = text.lower()
-    if os.path.exists(text):
+    if os.path.exists(text) or text.startswith("/vsi") or gdal_path(text) != text:  # a file, archive or URL
         return "raster" if lower.endswith(_RASTER_EXT) else "blocks"
     if lower.endswith(_RASTER_EXT + _VECTOR_EXT):
         raise LayerError(f"{text}: no such file")
@@ -988,8 +990,12 @@ def read_density(
     values: str = "count",
     band: int = 1,
     origin: tuple[float, float] | str | None = None,
+    open_options=None,
 ) -> DensitySpec:
     """Read the density source `text` names, checking it fully before any sampling.
+
+    `open_options` are GDAL open options of a block layer's driver
+    (:func:`~areamc.load.read_layer`); refused for another kind of source.
 
     Parameters
     ----------
@@ -1018,10 +1024,13 @@ def read_density(
         if kind != "expression":
             _unused_origin(f"the density is a {'block layer' if kind == 'blocks' else kind}, not an expression")
             origin = None
+    if open_options and kind != "blocks":
+        raise OptionError(f"{{param}}: open options serve a block layer, and the density is {kind!r}",
+                          param="open_options")
     if kind == "blocks":
         if not count_field:
             raise OptionError(f"{text}: a block layer needs {{param}}", param="count_field")
-        blocks = read_layer(text, layer=layer)
+        blocks = read_layer(text, layer=layer, open_options=open_options)
         return DensitySpec(kind, text, blocks=blocks, counts=block_counts(blocks, count_field),
                            count_field=count_field)
     if kind == "expression":

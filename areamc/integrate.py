@@ -80,7 +80,8 @@ class IntegrateRow:
         "importance" (over blocks or cells), "grid-importance" (from a pilot grid of density values:
         expressions, rasters in a CRS that is not equal-area), "uniform", or "none" (no density near the region).
     exact : float or None
-        Exact total from the source (areal weighting, cell fractions), or None.
+        Exact total from the source (areal weighting, cell fractions), or None (not asked, none for
+        this source, or not done within ``exact_time_limit_s``: see ``IntegrateReport.exact_status``).
     z : float or None
         Deviation from the exact total: the binomial mid-p score for
         importance sampling, standard errors for uniform sampling (:mod:`areamc.checks`).

@@ -55,6 +55,7 @@ __all__ = [
     "FEATURE_EXTENSIONS",
     "record_types",
     "value_type",
+    "is_boolean",
     "field_units",
     "csv_metadata",
     "metadata_path",
@@ -124,7 +125,9 @@ class Column:
         errors = [self.error_of(row) for row in rows]
         decimals = [None if e is None else decimals_for(e) for e in errors]
         known = [d for d in decimals if d is not None]
-        fallback = None if self.spec or not known else min(known)
+        if not known and not self.spec:  # no row has an error (all exact): no trailing zeros
+            return [_trim(self.text(row.get(self.field))) for row in rows]
+        fallback = None if self.spec else min(known)
         return [self.text(row.get(self.field), fallback if d is None else d) for row, d in zip(rows, decimals)]
 
 
@@ -140,6 +143,13 @@ def decimals_for(error: float) -> int:
     (2, 4, 0, 0)
     """
     return max(0, ERROR_DIGITS - 1 - int(math.floor(math.log10(error))))
+
+
+def _trim(text: str) -> str:
+    """``5,122.000`` becomes ``5,122`` and ``0.2500`` becomes ``0.25``: no trailing zeros after a decimal point."""
+    if "." in text and "e" not in text and text[-1:].isdigit():
+        text = text.rstrip("0").rstrip(".")
+    return text
 
 
 def _no_negative_zero(text: str) -> str:
@@ -289,10 +299,17 @@ def json_safe(value):
 FIELD_TYPES = ("str", "int", "float", "bool")
 
 
+def _annotation_text(annotation) -> str:
+    """An annotation as text: ``float | None`` (a string under postponed evaluation, PEP 563) as is,
+    a class by its name."""
+    if isinstance(annotation, str):
+        return annotation
+    return annotation.__name__ if isinstance(annotation, type) else str(annotation)
+
+
 def _annotation_type(annotation) -> str | None:
     """``"float | None"`` -> ``"float"``; None for an annotation that is no plain field type."""
-    text = annotation if isinstance(annotation, str) else getattr(annotation, "__name__", str(annotation))
-    names = [part.strip() for part in text.split("|") if part.strip() != "None"]
+    names = [part.strip() for part in _annotation_text(annotation).split("|") if part.strip() != "None"]
     return names[0] if len(names) == 1 and names[0] in FIELD_TYPES else None
 
 
@@ -310,7 +327,7 @@ def record_types(*classes) -> dict[str, str]:
     >>> @dataclass(frozen=True)
     ... class Row:
     ...     id: str
-    ...     z: "float | None"
+    ...     z: float | None
     ...     flagged: bool
     ...     def to_dict(self):
     ...         return asdict(self)
@@ -319,7 +336,8 @@ def record_types(*classes) -> dict[str, str]:
     """
     out: dict[str, str] = {}
     for cls in classes:
-        probe = cls(**{f.name: (f.type if _annotation_type(f.type) else None) for f in dataclasses.fields(cls)})
+        probe = cls(**{f.name: (_annotation_text(f.type) if _annotation_type(f.type) else None)
+                       for f in dataclasses.fields(cls)})
         for name, value in probe.to_dict().items():
             kind = _annotation_type(value) if isinstance(value, str) else None
             if kind is not None:
@@ -327,25 +345,36 @@ def record_types(*classes) -> dict[str, str]:
     return out
 
 
+def is_boolean(value) -> bool:
+    """Whether `value` is a Python or numpy boolean."""
+    return isinstance(value, bool) or type(value).__name__ in ("bool", "bool_")
+
+
 def value_type(values: Iterable) -> str:
-    """The type of a field no record declares, from its values: ``"int"`` when every value present
-    is a whole number (or boolean), ``"float"`` when every one is a number, else ``"str"``; a field
-    with no value present is ``"float"``."""
+    """The type of a field no record declares, from its values: ``"bool"`` when every value present
+    is a boolean, ``"int"`` when every one is a whole number (or boolean), ``"float"`` when every
+    one is a number, else ``"str"``; a field with no value present is ``"float"``.
+
+    >>> value_type([True, None]), value_type([1, False]), value_type([1, 2.5]), value_type(["a", 3]), value_type([])
+    ('bool', 'int', 'float', 'str', 'float')
+    """
     kinds = set()
     for v in values:
         if v is None:
             continue
-        if isinstance(v, bool) or type(v).__name__ == "bool_":
-            kinds.add("int")
+        if is_boolean(v):
+            kinds.add("bool")
         elif isinstance(v, numbers.Integral):
             kinds.add("int")
         elif isinstance(v, numbers.Real):
             kinds.add("float")
         else:
             kinds.add("str")
-    if not kinds or kinds == {"float"} or kinds == {"int", "float"}:
+    if "str" in kinds:
+        return "str"
+    if "float" in kinds or not kinds:
         return "float"
-    return "int" if kinds == {"int"} else "str"
+    return "bool" if kinds == {"bool"} else "int"
 
 
 #: Units of the fields that hold no area and mean the same in every job (docs/output.md, the
@@ -434,9 +463,18 @@ def csv_metadata(path: str, names: Sequence[str], types: Mapping[str, str], unit
     return json_safe(document)
 
 
-def write_json(document, path: str, *, batch: "OutputBatch | None" = None) -> None:
-    """Write `document` as indented JSON (NaN as null, infinities as strings) to `path`, atomically."""
-    write_text(json.dumps(json_safe(document), indent=2) + "\n", path, batch=batch)
+def write_json(document, path: str, *, batch: "OutputBatch | None" = None, owner: str | None = None) -> None:
+    """Write `document` as indented JSON (NaN as null, infinities as strings) to `path`, atomically.
+
+    With `owner` (the output `path` is the metadata sidecar of), a failure while writing raises an
+    OSError naming `owner`, with the sidecar's name in its reason.
+    """
+    try:
+        write_text(json.dumps(json_safe(document), indent=2) + "\n", path, batch=batch)
+    except OSError as err:
+        if owner is None or err.filename != path:
+            raise
+        raise OSError(err.errno, f"{err.strerror} (its metadata file {os.path.basename(path)})", owner) from err
 
 
 def render_fields(record: dict, labels: dict[str, str], area_fields: Sequence[str], units: str) -> str:
@@ -726,7 +764,8 @@ def cannot_write(err: BaseException, path: str) -> OSError:
 
 def _discard(tmp: str, parts: Sequence[str] = ()) -> None:
     root = os.path.splitext(tmp)[0]
-    for leftover in (tmp, *(tmp + side for side in SQLITE_SIDECARS), *(root + part for part in parts)):
+    spelt = [root + p for part in parts for p in dict.fromkeys((part.lower(), part.upper()))]
+    for leftover in (tmp, *(tmp + side for side in SQLITE_SIDECARS), *spelt):
         try:
             if os.path.lexists(leftover):
                 os.unlink(leftover)
@@ -740,9 +779,10 @@ def _rename_parts(tmp: str, path: str, parts: Sequence[str]) -> set[str]:
     tmp_root, root = os.path.splitext(tmp)[0], os.path.splitext(path)[0]
     written = set()
     for part in parts:
-        if os.path.lexists(tmp_root + part):
-            os.replace(tmp_root + part, root + part)
-            written.add(part.lower())
+        for spelling in dict.fromkeys((part.lower(), part.upper())):
+            if os.path.lexists(tmp_root + spelling):
+                os.replace(tmp_root + spelling, root + spelling)
+                written.add(part.lower())
     return written
 
 

@@ -18,7 +18,7 @@ import json
 import os
 from contextlib import nullcontext
 from dataclasses import dataclass
-from typing import Mapping, Sequence
+from typing import Mapping, NamedTuple, Sequence
 
 import fiona
 import pyproj
@@ -36,6 +36,7 @@ from .output import (
     SHAPEFILE_WRITTEN,
     OutputBatch,
     cannot_write,
+    is_boolean,
     json_safe,
     metadata_path,
     value_type,
@@ -84,6 +85,18 @@ class Attributes:
     layer: object
     index_field: str = "feature_index"
     suffix: str = ""
+
+
+class _Field(NamedTuple):
+    """One attribute field of the file: its name there, fiona type, what it holds, and its values by row."""
+
+    name: str
+    schema: str
+    field: str
+    origin: str
+    kind: str
+    unit: str | None
+    values: list
 
 
 def vector_driver(path: str | None) -> str | None:
@@ -174,9 +187,7 @@ def _schema_type(kind: str, driver: str) -> str:
             width = kind.split(":", 1)[1] if ":" in kind else ""
             return f"str:{min(int(width), 254)}" if width.isdigit() else "str:254"
         return kind
-    if base in ("int32", "int64"):
-        return base
-    return base if base != "int" or ":" not in kind else "int"
+    return base  # widths of numbers are GDAL's to choose: "int:10" becomes "int" (64-bit)
 
 
 def _coerce(value, kind: str):
@@ -187,13 +198,15 @@ def _coerce(value, kind: str):
     if base == "str":
         return value if isinstance(value, str) else str(value)
     if base in ("int", "int32", "int64", "bool"):
-        if isinstance(value, bool) or type(value).__name__ == "bool_":
+        if is_boolean(value):
             return int(bool(value)) if base != "bool" else bool(value)
         try:
             whole = int(value)
         except (TypeError, ValueError, OverflowError):
             return value
-        return whole if whole == value else value
+        if whole != value:
+            return value
+        return bool(whole) if base == "bool" and whole in (0, 1) else whole
     if base == "float":
         try:
             return float(value)
@@ -215,19 +228,58 @@ def _description(caveat: str | None, units_of: Mapping[str, str | None], units: 
             what += f"; areas in {units}: {', '.join(areas)}"
         if dense:
             what += f"; densities in count per {units}: {', '.join(dense)}"
-    parts.append(f"{what}; every field's unit and the run's metadata (seed, versions, inputs' SHA-256): {where}.")
+    detail = " (seed, versions, inputs' SHA-256)" if job else ""
+    parts.append(f"{what}; every field's unit and the run's metadata{detail}: {where}.")
     return " ".join(parts)
 
 
 def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, layer: str, *,
-                   batch: OutputBatch | None = None, description: str | None = None) -> None:
-    """Write `rows` as attributes of `geometries` (shapely, in `crs`) to a GeoPackage or GeoJSON file.
+                   batch: OutputBatch | None = None, description: str | None = None,
+                   attributes: Sequence[Attributes] = (), types: Mapping[str, str] | None = None,
+                   units_of: Mapping[str, str | None] | None = None, metadata: Mapping | None = None) -> None:
+    """Write `rows` as attributes of `geometries` (shapely, in `crs`) to a GeoPackage (``.gpkg``),
+    GeoJSON (``.geojson``), Shapefile (``.shp``) or FlatGeobuf (``.fgb``) file.
 
-    `description` (a caution, for example) becomes the layer's description: the GeoPackage's
-    ``gpkg_contents.description`` and the GeoJSON file's ``description`` member (GDAL's
-    DESCRIPTION layer creation option).
+    Parameters
+    ----------
+    path : str
+        The output; its extension picks the format (:data:`VECTOR_DRIVERS`).
+    geometries : sequence of shapely geometries
+        One per row, in `crs` (the input layer's CRS, metres or degrees as it declares).  Polygons
+        are written as MultiPolygons, the layer's declared geometry type.
+    rows : list of dict
+        The result rows, areas already in the output unit.
+    crs : pyproj.CRS
+        The CRS of `geometries`, written to the file; a GeoJSON file is instead written in
+        longitude/latitude on WGS84 (RFC 7946 §4), GDAL transforming the coordinates (PROJ), with
+        7 decimals (about 1 cm) and rings cut at the antimeridian (§3.1.9).
+    layer : str
+        The layer name (a Shapefile's layer is its file name).
+    attributes : sequence of :class:`Attributes`
+        Input layers whose attributes come first in each feature, under their own names (plus the
+        spec's suffix); a name that clashes, without case, with a result field or a reserved name
+        (:data:`RESERVED_NAMES`) gets the prefix ``input_``.
+    types : mapping, optional
+        The type of each result field (``"str"``, ``"int"``, ``"float"``, ``"bool"``; booleans are
+        boolean fields, 0/1 integers in a Shapefile); a field not listed is typed by its values
+        (:func:`~areamc.output.value_type`).
+    units_of : mapping, optional
+        The unit of each result field (:func:`~areamc.output.field_units`), written with the field list.
+    metadata : mapping, optional
+        The run's metadata (the JSON output's keys without ``results``).
+    description : str, optional
+        A caution: it opens the layer's description (``gpkg_contents.description``, the GeoJSON
+        ``description`` member, the FlatGeobuf header's description).
 
-    The file is written under a temporary name beside `path` and renamed into
+    The run's metadata, with ``fields`` (each field's ``name`` in the file, the ``field`` it holds,
+    where it is ``from``, its ``type`` and ``unit``), is written as :data:`METADATA_KEY` into a
+    GeoPackage's gpkg_metadata table (GDAL layer metadata) and as a foreign member of a GeoJSON
+    FeatureCollection (RFC 7946 §6.1), and as the sidecar ``NAME.EXT-metadata.json`` beside a
+    Shapefile or FlatGeobuf file.  A Shapefile's field names are cut to 10 bytes
+    (:func:`shapefile_names`); ``fields`` maps them back.  A FlatGeobuf file is written without
+    a spatial index, so that its features keep the rows' order.
+
+    Every file is written under a temporary name beside `path` and renamed into
     place (when `batch` commits, if given), so a failure leaves no partial
     file and no SQLite journal.  A failure while writing (a full disk: GDAL
     reports "database or disk is full" for a GeoPackage) raises an OSError
@@ -235,23 +287,69 @@ def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, lay
     """
     driver = vector_driver(path)
     if driver is None:
-        raise OptionError(f"{{param}} {path}: not a GeoPackage (.gpkg) or GeoJSON (.geojson) path", param="output")
-    fields = list(rows[0]) if rows else []
-    types = {f: _field_type([r.get(f) for r in rows]) for f in fields}
-    schema = {"geometry": "Unknown", "properties": {f: types[f] for f in fields}}
+        raise OptionError(f"{{param}} {path}: not a GeoPackage (.gpkg), GeoJSON (.geojson), Shapefile (.shp) "
+                          "or FlatGeobuf (.fgb) path", param="output")
+    units_of = dict(units_of or {})
+    metadata = dict(metadata or {})
+    result_names = list(rows[0]) if rows else []
+    declared = dict(types or {})
+    columns: list[_Field] = []
+    taken = {name.lower() for name in result_names} | set(RESERVED_NAMES)
+    for spec in attributes:
+        lookup = dict(zip(spec.layer.indices, spec.layer.properties))
+        for name, kind in _input_fields(spec):
+            written = name + spec.suffix
+            while written.lower() in taken:
+                written = INPUT_PREFIX + written
+            taken.add(written.lower())
+            values = [lookup.get(row.get(spec.index_field), {}).get(name) for row in rows]
+            columns.append(_Field(written, _schema_type(kind, driver), name, "input" + spec.suffix, _base(kind),
+                                  None, values))
+    for name in result_names:
+        values = [row.get(name) for row in rows]
+        kind = declared.get(name) or value_type(values)
+        columns.append(_Field(name, _schema_type(kind, driver), name, "results", kind, units_of.get(name), values))
+    if driver == "ESRI Shapefile":
+        short = shapefile_names([c.name for c in columns])
+        columns = [c._replace(name=short[c.name]) for c in columns]
+    fields = [{"name": c.name, "field": c.field, "from": c.origin, "type": c.kind, "unit": c.unit} for c in columns]
+    geoms = [_multipolygon(g) for g in geometries]
+    polygonal = all(g is None or g.geom_type == "MultiPolygon" for g in geoms)
+    schema = {"geometry": "MultiPolygon" if polygonal else "Unknown",
+              "properties": {c.name: c.schema for c in columns}}
+    document = json_safe({**metadata, "fields": fields})
+    sidecar = driver in ("ESRI Shapefile", "FlatGeobuf")
+    where = _WHERE[driver].format(name=os.path.basename(metadata_path(path)))
+    text = _description(description, {c.field: c.unit for c in columns if c.origin == "results"},
+                        metadata.get("units"), metadata.get("job"), where)
+    options: dict = {"crs": FionaCRS.from_wkt(crs.to_wkt())}
+    staging: dict = {}
+    if driver == "GPKG":
+        options.update(layer=layer, DESCRIPTION=text)
+    elif driver == "GeoJSON":
+        options.update(layer=layer, DESCRIPTION=text, RFC7946="YES",
+                       FOREIGN_MEMBERS_COLLECTION=json.dumps({METADATA_KEY: document}))
+    elif driver == "FlatGeobuf":
+        options.update(layer=layer, TITLE=layer, DESCRIPTION=text, SPATIAL_INDEX="NO")
+    else:
+        options.update(encoding="utf-8")
+        staging.update(parts=SHAPEFILE_WRITTEN, stale=SHAPEFILE_STALE)
     suffix = os.path.splitext(path)[1]
     with nullcontext(batch) if batch is not None else OutputBatch() as files:
-        with files.staging(path, suffix, create=False) as tmp:
+        with files.staging(path, suffix, create=False, **staging) as tmp:
             try:
-                options = {"DESCRIPTION": description} if description else {}
-                with fiona.open(tmp, "w", driver=driver, schema=schema, crs=FionaCRS.from_wkt(crs.to_wkt()),
-                                layer=layer, **options) as dst:
-                    for geom, row in zip(geometries, rows):
-                        props = {f: _value(v, types[f]) for f, v in row.items()}
-                        dst.write({"geometry": shapely.geometry.mapping(geom), "properties": props})
+                with fiona.open(tmp, "w", driver=driver, schema=schema, **options) as dst:
+                    for n, geom in enumerate(geoms):
+                        props = {c.name: _coerce(c.values[n], c.schema) for c in columns}
+                        dst.write({"geometry": None if geom is None else shapely.geometry.mapping(geom),
+                                   "properties": props})
+                    if driver == "GPKG":
+                        dst.update_tags({METADATA_KEY: json.dumps(document)})
             except (CPLE_BaseError, DriverError, DataIOError) as err:
                 raise cannot_write(err, path) from err
             except RuntimeError as err:  # fiona's "GDAL Error: Cannot write feature" (a full disk, for GeoJSON)
                 if not str(err).startswith("GDAL Error"):
                     raise
                 raise cannot_write(err, path) from err
+        if sidecar:
+            write_json({"url": os.path.basename(path), **document}, metadata_path(path), batch=files, owner=path)

@@ -191,7 +191,7 @@ def _radius(value, layer: Layer, fid: str, field: str, unit: str = "m") -> float
 
 
 def read_zones(
-    path: str,
+    path,
     *,
     layer: str | None = None,
     id_field: str | None = None,
@@ -203,19 +203,23 @@ def read_zones(
     encoding: str | None = None,
     allow_duplicate_ids: bool = False,
     radius_unit: str = "m",
+    open_options=None,
 ) -> Layer:
     """Read a zone layer: polygons as they are, points as geodesic circles.
+
+    `path` is anything :func:`~areamc.load.read_layer` reads: a file or URL, a GeoParquet
+    file, or a GeoDataFrame (whose columns, a reach field among them, are kept).
 
     Points need `radius_m` (metres, for all) or `radius_field` (per feature, in
     `radius_unit`: m, km or mi, default metres); on a polygon layer a radius is ignored with a warning.  A layer
     that mixes points and polygons is classified feature by feature: its
     points become circles and its polygons stay as they are, in one layer in
     the file's CRS (the circles, built in lon/lat, are moved into it vertex by
-    vertex), with a warning that counts both.  `encoding` and
-    `allow_duplicate_ids` are passed to :func:`~areamc.load.read_layer`.
+    vertex), with a warning that counts both.  `encoding`, `allow_duplicate_ids` and
+    `open_options` are passed to :func:`~areamc.load.read_layer`.
     """
     zones = read_layer(path, layer=layer, id_field=id_field, input_crs=input_crs, kind="any",
-                       encoding=encoding, allow_duplicate_ids=allow_duplicate_ids)
+                       encoding=encoding, allow_duplicate_ids=allow_duplicate_ids, open_options=open_options)
     if zones.kind == "point":
         circles = zones_from_points(zones, radius_m=radius_m, radius_field=radius_field, vertices=vertices,
                                     vertex_cap=vertex_cap, radius_unit=radius_unit)

@@ -60,6 +60,7 @@ ROWS = [
     ("overlap_pairs", "run", {}, "item 6"),
     ("classify_zones", "run", {}, "item 1"),
     ("raster_total", "run", {}, ""),
+    ("raster_exact", "run", {}, "item 4"),
     ("area_throughput", "run", {}, ""),
     ("transform_layer", "run", {}, "item 6"),
 ]

@@ -391,7 +391,7 @@ def test_end_to_end_json_on_sample_files(path, layer):
     assert doc["version"] == areamc.__version__ == importlib.metadata.version("areamc")
     assert doc["command"] == " ".join(["areamc", *map(str, args)])
     assert doc["confidence"] == 0.999
-    assert doc["seed"] == 20240601
+    assert doc["seed"] == "20240601"  # a string: JSON readers that hold numbers as doubles keep it exactly
     assert doc["units"] == "m2"
     plane = pyproj.CRS.from_wkt(doc["plane"]["wkt"])
     assert plane.is_projected
@@ -441,7 +441,8 @@ def test_output_and_trace_files_end_to_end(tmp_path):
         assert int(mine[-1]["hits"]) == row["hits"]
         assert float(mine[-1]["estimate"]) == row["estimate"]
         assert float(mine[-1]["ci_low"]) == row["ci_low"] and float(mine[-1]["ci_high"]) == row["ci_high"]
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["result.json", "trace.csv"]  # no temporary files
+    # no temporary files; the trace has its CSVW metadata sidecar (docs/output.md, CSV)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["result.json", "trace.csv", "trace.csv-metadata.json"]
 
 
 @pytest.mark.parametrize("stop", [["-n", "50000"], ["--tolerance", "2%", "--chunk", "4096"]], ids=["points", "tolerance"])
@@ -552,7 +553,7 @@ def test_seed_is_recorded_and_replays(capsys):
     fresh = run_json(capsys, map(str, args))
     replay = run_json(capsys, map(str, [*args, "--seed", str(fresh["seed"])]))
     assert replay["results"] == fresh["results"]
-    other = run_json(capsys, map(str, [*args, "--seed", str(fresh["seed"] + 1)]))
+    other = run_json(capsys, map(str, [*args, "--seed", str(int(fresh["seed"]) + 1)]))
     assert [r["hits"] for r in other["results"]] != [r["hits"] for r in fresh["results"]]
 
 

@@ -222,8 +222,8 @@ def test_output_path__distinct_paths__accepted(files, capsys, monkeypatch, argv)
 
 
 def _full_disk_text(nth):
-    """Text files: the `nth` temporary file opens (1: the trace, staged first; 2: the output),
-    then write(2) fails with ENOSPC."""
+    """Text files: the `nth` temporary file opens (1: the trace, staged first; 2: the trace's CSVW
+    metadata sidecar; 3: the output; 4: a CSV output's sidecar), then write(2) fails with ENOSPC."""
     return lambda monkeypatch: _install_full_disk_text(monkeypatch, nth)
 
 
@@ -263,7 +263,8 @@ def _full_disk_vector(exc):
 
 
 def _folder_denied(nth):
-    """The folder stops being writable after the check: creating the `nth` temporary file fails with EACCES."""
+    """The folder stops being writable after the check: creating the `nth` temporary file fails with EACCES
+    (1: the trace, 2: its metadata sidecar, 3: the output)."""
 
     def install(monkeypatch):
         real_mkstemp = areamc.output.tempfile.mkstemp
@@ -287,15 +288,15 @@ def _gdal_full():
 
 
 WRITE_FAILURES = [
-    ("csv, ENOSPC", _full_disk_text(2), "out.csv", r"--output .*out\.csv: cannot write: No space left on device"),
+    ("csv, ENOSPC", _full_disk_text(3), "out.csv", r"--output .*out\.csv: cannot write: No space left on device"),
     ("trace, ENOSPC", _full_disk_text(1), "out.json", r"--trace .*t\.csv: cannot write: No space left on device"),
     ("gpkg, ENOSPC", _full_disk_vector(OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))), "out.gpkg",
      r"--output .*out\.gpkg: cannot write: No space left on device"),
     ("gpkg, GDAL disk full", _full_disk_vector(_gdal_full()), "out.gpkg", r"--output .*out\.gpkg: cannot write: .*database or disk is full"),
     ("geojson, GDAL write error", _full_disk_vector(RuntimeError("GDAL Error: Cannot write feature. Failed to write record: x")),
      "out.geojson", r"--output .*out\.geojson: cannot write: GDAL Error: Cannot write feature"),
-    ("csv, EACCES", _folder_denied(2), "out.csv", r"--output .*out\.csv: cannot write: Permission denied"),
-    ("gpkg, EACCES", _folder_denied(2), "out.gpkg", r"--output .*out\.gpkg: cannot write: Permission denied"),
+    ("csv, EACCES", _folder_denied(3), "out.csv", r"--output .*out\.csv: cannot write: Permission denied"),
+    ("gpkg, EACCES", _folder_denied(3), "out.gpkg", r"--output .*out\.gpkg: cannot write: Permission denied"),
     ("trace, EACCES", _folder_denied(1), "out.gpkg", r"--trace .*t\.csv: cannot write: Permission denied"),
 ]
 

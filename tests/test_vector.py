@@ -71,7 +71,9 @@ def read_back(path):
         ("result.GeoJSON", "GeoJSON"),
         ("out.csv", None),
         ("out.json", None),
-        ("out.shp", None),
+        ("out.shp", "ESRI Shapefile"),
+        ("out.FGB", "FlatGeobuf"),
+        ("out.parquet", None),
         ("out", None),
         ("out.gpkg/result.csv", None),
         ("", None),
@@ -95,33 +97,40 @@ def test_vector_driver__names_are_fiona_drivers():
 @pytest.mark.parametrize("epsg", [4326, 3035])
 def test_write_features__read_back_with_fiona(tmp_path, ext, epsg):
     geoms = LONLAT_GEOMETRIES if epsg == 4326 else laea_geometries()
-    tolerance = 1e-9 if epsg == 4326 else 1e-6
     path = tmp_path / f"out{ext}"
     write_features(str(path), geoms, ROWS, pyproj.CRS.from_epsg(epsg), "areas")
     assert files_in(tmp_path) == [path.name]  # no temporary or SQLite side files left
     layers, crs, props, features = read_back(path)
     if ext == ".gpkg":
         assert layers == ["areas"]
-    # CRS: the same as given (GDAL labels a lon/lat GeoJSON OGC:CRS84, same datum, lon/lat order)
-    assert crs.equals(pyproj.CRS.from_epsg(epsg), ignore_axis_order=True)
+        assert crs.equals(pyproj.CRS.from_epsg(epsg), ignore_axis_order=True)  # the CRS as given
+        expected, tolerance = geoms, (1e-9 if epsg == 4326 else 1e-6)
+    else:
+        # RFC 7946 §4: GeoJSON is lon/lat on WGS84 (GDAL labels it OGC:CRS84, lon/lat order); a projected
+        # layer comes back as pyproj transforms it (GDAL writes 7 decimals under RFC7946, about 1 cm [memory])
+        assert crs.equals(pyproj.CRS.from_epsg(4326), ignore_axis_order=True)
+        expected, tolerance = LONLAT_GEOMETRIES, 2e-7
     # schema: field order and types as the rows
     assert list(props) == ["id", "estimate", "points", "flagged", "exact", "population"]
     assert props["id"] == "str" and props["estimate"] == "float" and props["exact"] == "float"
-    assert props["points"].startswith("int") and props["flagged"].startswith("int")
+    assert props["points"].startswith("int") and props["flagged"] == "bool"
     assert props["population"].startswith("int")
     # features: count, values, Python types, geometry
     assert len(features) == 3
-    for (got, geom), row, source in zip(features, ROWS, geoms):
+    for (got, geom), row, source in zip(features, ROWS, expected):
         assert got["id"] == row["id"]
         assert type(got["estimate"]) is float and got["estimate"] == float(row["estimate"])
         assert type(got["points"]) is int and got["points"] == int(row["points"])
-        assert got["flagged"] == (1 if row["flagged"] else 0) and type(got["flagged"]) is int  # booleans as 0/1
+        assert got["flagged"] is bool(row["flagged"])  # a boolean field (GeoPackage BOOLEAN, GeoJSON true/false)
         assert got["exact"] == row["exact"]
         assert got["population"] == row["population"]  # 3e9 needs a 64-bit integer field
-        assert geom.geom_type == source.geom_type
-        assert shapely.equals_exact(geom, source, tolerance=tolerance), (geom.wkt, source.wkt)
-        assert geom.area == pytest.approx(source.area, rel=1e-9)
-    assert len(features[1][1].interiors) == 1  # the hole survives
+        # polygons are written as MultiPolygons (GDAL's RFC 7946 writer gives a one-part one as a Polygon)
+        assert geom.geom_type in ("MultiPolygon", source.geom_type)
+        assert shapely.equals_exact(shapely.normalize(shapely.MultiPolygon(shapely.get_parts(geom))),
+                                    shapely.normalize(shapely.MultiPolygon(shapely.get_parts(source))),
+                                    tolerance=tolerance), (geom.wkt, source.wkt)
+        assert geom.area == pytest.approx(source.area, rel=1e-5)
+    assert len(shapely.get_parts(features[1][1])[0].interiors) == 1  # the hole survives
 
 
 def test_write_features__overwrites_an_existing_file(tmp_path):
@@ -165,28 +174,53 @@ def test_write_features__mixed_string_and_number_field__kept_as_text(tmp_path, e
 # --- write_features: failures leave nothing behind -------------------------------------------
 
 
-@pytest.mark.parametrize("ext", [".gpkg", ".geojson"])
-def test_write_features__unwritable_geometry__no_file_left(tmp_path, ext):
-    path = tmp_path / f"out{ext}"
-    geoms = [LONLAT_GEOMETRIES[0], None]  # None has no geometry mapping: fails after the file is open
-    with pytest.raises(AttributeError):  # shapely's mapping() of None
-        write_features(str(path), geoms, ROWS[:2], pyproj.CRS.from_epsg(4326), "areas")
+def _fail_on_second_feature(monkeypatch):
+    """fiona's feature write fails on the second feature, after the file is open and one feature is in."""
+    real_write = fiona.Collection.write
+    calls = []
+
+    def write(self, record):
+        calls.append(record)
+        if len(calls) == 2:
+            raise ValueError("simulated failure while writing")
+        return real_write(self, record)
+
+    monkeypatch.setattr(fiona.Collection, "write", write)
+
+
+@pytest.mark.parametrize("ext", [".gpkg", ".geojson", ".shp", ".fgb"])
+def test_write_features__failure_while_writing__no_file_left(tmp_path, monkeypatch, ext):
+    # a Shapefile's .shx/.dbf/.prj/.cpg and the metadata sidecar of a Shapefile or FlatGeobuf go too
+    _fail_on_second_feature(monkeypatch)
+    with pytest.raises(ValueError, match="simulated"):
+        write_features(str(tmp_path / f"out{ext}"), LONLAT_GEOMETRIES, ROWS, pyproj.CRS.from_epsg(4326), "areas")
     assert files_in(tmp_path) == []
 
 
-def test_write_features__failure__previous_output_kept(tmp_path):
+def test_write_features__failure__previous_output_kept(tmp_path, monkeypatch):
     path = tmp_path / "out.gpkg"
     crs = pyproj.CRS.from_epsg(4326)
     write_features(str(path), LONLAT_GEOMETRIES, ROWS, crs, "areas")
     before = path.read_bytes()
-    with pytest.raises(AttributeError):  # shapely's mapping() of None
-        write_features(str(path), [LONLAT_GEOMETRIES[0], None], ROWS[:2], crs, "areas")
+    _fail_on_second_feature(monkeypatch)
+    with pytest.raises(ValueError, match="simulated"):
+        write_features(str(path), LONLAT_GEOMETRIES[:2], ROWS[:2], crs, "areas")
     assert path.read_bytes() == before
     assert files_in(tmp_path) == ["out.gpkg"]
+    monkeypatch.undo()
     assert len(read_back(path)[3]) == 3
 
 
-@pytest.mark.parametrize("name", ["out.shp", "out.csv", "out", "out.gpkg.txt"])
+def test_write_features__null_geometry__written_as_null(tmp_path):
+    # a row without a geometry is a feature with a null geometry (GeoPackage: NULL), not a failure
+    path = tmp_path / "out.gpkg"
+    write_features(str(path), [LONLAT_GEOMETRIES[0], None], ROWS[:2], pyproj.CRS.from_epsg(4326), "areas")
+    with fiona.open(str(path)) as src:
+        geoms = [f.geometry for f in src]
+    assert geoms[0] is not None and geoms[1] is None
+
+
+@pytest.mark.parametrize("name", ["out.parquet", "out.csv", "out", "out.gpkg.txt"])
 def test_write_features__unknown_extension__option_error_no_file(tmp_path, name):
     with pytest.raises(OptionError):
         write_features(str(tmp_path / name), LONLAT_GEOMETRIES, ROWS, pyproj.CRS.from_epsg(4326), "areas")

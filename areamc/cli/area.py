@@ -6,10 +6,11 @@ from __future__ import annotations
 from ..area import AreaReport, estimate_areas
 from ..frames import table_columns
 from ..load import read_layer
-from ..output import Column, OutputBatch, render, write_text
+from ..output import Column, OutputBatch
 from ..project import project_layer
 from ..samplers import interval_method
 from .common import (
+    Attributes,
     add_worker_options,
     Screen,
     add_layer_options,
@@ -21,6 +22,8 @@ from .common import (
     header_lines,
     layer_options,
     positive_int,
+    emit,
+    report_types,
     run_metadata,
     show,
     stop_rule,
@@ -103,9 +106,10 @@ def run(args) -> int:
     metadata = {**run_metadata(args, input=layer), **report.metadata()}
     rows = [row.to_dict() for row in report.rows]
     with OutputBatch() as batch:  # the trace and the results are renamed into place once both are written
-        if args.trace:
+        if args.trace:  # CSV with its CSVW sidecar, like --output
             trace = [t.to_dict() for t in report.trace_rows()]
-            write_text(render(trace, TRACE_COLUMNS, fmt="csv", units=args.units, metadata={}), args.trace, batch=batch)
-        show(args, SCREEN, report, rows, metadata, inputs=layer, features=(layer.geometries, layer.crs, "areas"),
-             batch=batch)
+            emit(args, trace, TRACE_COLUMNS, metadata, path=args.trace, batch=batch,
+                 types=report_types(report, "trace"))
+        show(args, SCREEN, report, rows, metadata, inputs=layer, batch=batch,
+             features=(layer.geometries, layer.crs, "areas", [Attributes(layer)]))
     return 0

@@ -6,7 +6,7 @@ import argparse
 import math
 import os
 import sys
-from contextlib import contextmanager
+from contextlib import contextmanager, nullcontext
 from dataclasses import dataclass
 from typing import Callable, Sequence
 
@@ -14,13 +14,31 @@ from .. import __version__
 from ..checks import FLAG_Z
 from ..engine import DEFAULT_CHUNK
 from ..errors import OptionError
-from ..output import FORMATS, Column, check_output_path, convert_rows, render, wrap, write_text
+from ..output import (
+    FEATURE_EXTENSIONS,
+    FORMATS,
+    TEXT_EXTENSIONS,
+    Column,
+    OutputBatch,
+    check_output_paths,
+    convert_rows,
+    csv_metadata,
+    field_units,
+    metadata_path,
+    record_types,
+    render,
+    value_type,
+    wrap,
+    write_json,
+    write_text,
+)
 from ..parallel import usable_cores
 from ..project import DEFAULT_DENSIFY_M
 from ..samplers import SAMPLERS
 from ..stopping import DEFAULT_MAX_POINTS, DEFAULT_POINTS, POINT_CAP, StopRule
+from ..runinfo import file_digests, utc_now, versions
 from ..units import AREA_UNITS, DISTANCE_UNITS, area_factor, parse_distance
-from ..vector import vector_driver, write_features
+from ..vector import Attributes, vector_driver, write_features
 from ..zones import DEFAULT_VERTICES, MAX_CIRCLE_VERTICES, read_zones
 
 __all__ = [
@@ -39,6 +57,7 @@ __all__ = [
     "positive_float",
     "parse_tolerance",
     "emit",
+    "Attributes",
     "add_zone_options",
     "add_sampling_options",
     "add_worker_options",
@@ -66,6 +85,7 @@ FLAGS = {
     "workers": "--workers",
     "crs": "--plane-crs",
     "radius_unit": "--radius-field-unit",
+    "open_options": "--open-option",
 }
 _NAMES: list[dict[str, str]] = []
 
@@ -342,8 +362,8 @@ def stop_rule(args, *, scale: float | None = None, below: float | None = None) -
 
 def add_layer_options(parser: argparse.ArgumentParser, *, prefix: str = "", what: str = "FILE",
                       first: bool = True) -> None:
-    """``--[PREFIX]layer``, ``--[PREFIX]id-field``, ``--[PREFIX]input-crs`` and ``--[PREFIX]input-encoding``
-    for the input file `what`.
+    """``--[PREFIX]layer``, ``--[PREFIX]id-field``, ``--[PREFIX]input-crs``, ``--[PREFIX]input-encoding``
+    and ``--[PREFIX]open-option`` for the input file `what`.
 
     A command with one input file uses no prefix; a command with several names each input's
     options after it (``--regions-layer``, ``--zones-layer``, ``--other-layer``).  With `first`,
@@ -361,6 +381,10 @@ def add_layer_options(parser: argparse.ArgumentParser, *, prefix: str = "", what
     parser.add_argument(f"--{prefix}input-encoding", metavar="NAME",
                         help=f"text encoding of {what}'s attributes, such as latin-1, when the file declares "
                         "a wrong one (default: the file's own, e.g. a Shapefile's .cpg)")
+    parser.add_argument(f"--{prefix}open-option", action="append", metavar="KEY=VALUE",
+                        help=f"a GDAL open option of {what}'s driver, repeated for several: for a CSV of points, "
+                        "X_POSSIBLE_NAMES=lon and Y_POSSIBLE_NAMES=lat (its coordinate columns), or "
+                        "GEOM_POSSIBLE_NAMES=wkt (a column of WKT)")
     if first:
         parser.add_argument("--allow-duplicate-ids", action="store_true",
                             help="accept features that share an id (refused by default, since such rows cannot "
@@ -376,6 +400,7 @@ def layer_options(args, prefix: str = "") -> dict:
         "id_field": getattr(args, f"{prefix}id_field"),
         "input_crs": getattr(args, f"{prefix}input_crs"),
         "encoding": getattr(args, f"{prefix}input_encoding"),
+        "open_options": getattr(args, f"{prefix}open_option", None),
         "allow_duplicate_ids": getattr(args, "allow_duplicate_ids", False),
     }
 
@@ -384,7 +409,7 @@ def input_flags(prefix: str):
     """The :func:`flags` block naming the layer options of input `prefix` (``"zones_"``) in errors."""
     dash = prefix.replace("_", "-")
     return flags(layer=f"--{dash}layer", id_field=f"--{dash}id-field", input_crs=f"--{dash}input-crs",
-                 encoding=f"--{dash}input-encoding")
+                 encoding=f"--{dash}input-encoding", open_options=f"--{dash}open-option")
 
 
 def distance(text: str) -> float:
@@ -420,12 +445,16 @@ def add_output_options(parser: argparse.ArgumentParser, *, units: str = "areas",
     density); `features` whether ``--output`` also takes .gpkg and .geojson; `progress` whether the
     command shows a progress bar (area, overlap, coverage, integrate), which ``--quiet`` then hides too.
     """
-    kinds = ".csv, .json, or .gpkg/.geojson for the features with their results" if features else ".csv or .json"
+    kinds = (".csv (with a NAME.csv-metadata.json file of units and run metadata), .json, or .txt or no "
+             "extension for text")
+    if features:
+        kinds += "; .gpkg, .geojson, .shp or .fgb for the features with their results"
     parser.add_argument("--format", choices=FORMATS,
-                        help="output format: table, csv or json (default: from --output's extension, else table)")
+                        help="output format: table, csv or json (default: from --output's extension, else table); "
+                        "with --output it must agree with a .csv or .json extension")
     parser.add_argument("--output", "-o", metavar="PATH",
                         help=f"write the results to this file instead of the terminal ({kinds}; any other "
-                        "extension gets the table as text)")
+                        "extension is refused)")
     applies = ("unit of the mean density (counts per UNIT)" if units == "density"
                else "unit of the areas in the output")
     parser.add_argument("--units", default=DEFAULT_UNITS, choices=list(AREA_UNITS),
@@ -468,28 +497,69 @@ def caveat(*, reach: bool = False, claim: bool = False) -> str | None:
 
 
 def run_metadata(args, **inputs) -> dict:
-    """Metadata every result file starts with: tool, version, command, and the inputs.
+    """Metadata every result file starts with: tool, version, command, the inputs, the clock and
+    the versions of the libraries (:func:`~areamc.runinfo.versions`).
 
-    Each keyword is an output key (``input=layer`` or ``inputs=[layers]``); a
-    layer is described by path, layer name, CRS and number of features kept.
+    Each keyword is an output key (``input=layer`` or ``inputs=[layers]``); a layer is described
+    by path, layer name, CRS, number of features kept and ``files``, the SHA-256 of each of its
+    files (:func:`~areamc.runinfo.file_digests`).  ``started`` is when the run began (noted by
+    :func:`check_outputs`, the first step of every command), ``finished`` when this is called,
+    after the job: both ISO 8601 in UTC.
     """
     def describe(layer) -> dict:
-        return {"path": layer.path, "layer": layer.layer, "crs": layer.crs.to_string(), "features": len(layer)}
+        return {"path": layer.path, "layer": layer.layer, "crs": layer.crs.to_string(), "features": len(layer),
+                "files": file_digests(layer.path, layer.layer)}
 
     out = {"tool": "areamc", "version": __version__, "command": " ".join(args.argv)}
     for key, value in inputs.items():
         out[key] = [describe(v) for v in value] if isinstance(value, (list, tuple)) else describe(value)
+    out["started"] = getattr(args, "started", None) or utc_now()
+    out["finished"] = utc_now()
+    out["versions"] = dict(versions())
     return out
 
 
+def _extension(path: str) -> str:
+    """The extension of `path`'s file name, in lower case (``""`` for none)."""
+    return os.path.splitext(os.path.basename(path.rstrip("/")))[1].lower()
+
+
+_TEXT_KINDS = ".csv, .json, .txt or no extension"
+_FEATURE_KINDS = ", ".join(FEATURE_EXTENSIONS[:-1]) + " or " + FEATURE_EXTENSIONS[-1]
+
+
+def check_format(args, *, features: bool = True) -> None:
+    """Refuse, before any work, an ``--output`` extension areamc does not write (or, with
+    `features` false, a feature extension), a ``--format`` that contradicts a ``.csv``/``.json``
+    extension or comes with a feature extension, and a ``--trace`` path not ending in ``.csv``."""
+    path = args.output
+    if path:
+        ext = _extension(path)
+        if ext in FEATURE_EXTENSIONS:
+            if not features:
+                raise OptionError(f"--output {path}: this command writes no features; give {_TEXT_KINDS}")
+            if args.format:
+                raise OptionError(f"--format {args.format}: --output {path} writes features; drop --format, or give "
+                                  f"{_TEXT_KINDS}")
+        elif ext not in TEXT_EXTENSIONS:
+            also = f", or {_FEATURE_KINDS} for features" if features else ""
+            raise OptionError(f"--output {path}: areamc does not write {ext} files; give {_TEXT_KINDS} for the "
+                              f"results as text{also}")
+        elif TEXT_EXTENSIONS[ext] and args.format and args.format != TEXT_EXTENSIONS[ext]:
+            raise OptionError(f"--format {args.format}: --output {path} ends in {ext}, which holds "
+                              f"{TEXT_EXTENSIONS[ext]}; drop --format, or give .{args.format} or .txt")
+    trace = getattr(args, "trace", None)
+    if trace and _extension(trace) != ".csv":
+        raise OptionError(f"--trace {trace}: the trace is CSV; give a path ending in .csv")
+
+
 def output_format(args) -> str:
-    """The format asked for, or the one the ``--output`` extension implies."""
+    """The text format asked for, or the one the ``--output`` extension implies (``.csv``, ``.json``;
+    a table for ``.txt``, no extension or stdout)."""
     if args.format:
         return args.format
     if args.output:
-        ext = args.output.rsplit(".", 1)[-1].lower()
-        if ext in ("csv", "json"):
-            return ext
+        return TEXT_EXTENSIONS.get(_extension(args.output)) or "table"
     return "table"
 
 
@@ -523,7 +593,19 @@ def show(args, screen: Screen, report, rows, metadata, *, inputs=None, features=
     footer = screen.footer(args, report, rows)
     columns = with_feature_index(args, columns or screen.columns)
     emit(args, rows, columns, metadata, header, footer, features=features, fields=screen.fields,
-         batch=batch)
+         batch=batch, types=report_types(report))
+
+
+def report_types(report, which: str = "rows") -> dict[str, str]:
+    """The type of every field of a report's table (:func:`~areamc.output.record_types` of its row
+    records, :data:`areamc.frames.TABLES`); empty for anything else."""
+    from ..frames import TABLES
+
+    for known, tables in TABLES.items():
+        if isinstance(report, known) and which in tables:
+            table = tables[which]
+            return record_types(table.record, *(part for _, part in table.nested))
+    return {}
 
 
 def with_feature_index(args, columns):
@@ -541,49 +623,83 @@ def with_feature_index(args, columns):
     return tuple(out[:last_id + 1] + extra + out[last_id + 1:])
 
 
-def emit(args, rows, columns, metadata, header=(), footer=(), features=None, fields=None, batch=None) -> None:
-    """Render rows per the output options and write them to ``--output`` or stdout.
+def emit(args, rows, columns, metadata, header=(), footer=(), features=None, fields=None, batch=None,
+         types=None, path=None) -> None:
+    """Render rows per the output options and write them to ``--output`` (or `path`) or stdout.
 
     `columns` are the table's; `fields` (default `columns`) name every area or
     per-area field, for unit conversion in CSV, JSON and feature output.
-    `features` is ``(geometries, crs, layer_name)`` for a GeoPackage/GeoJSON ``--output``.
-    With `batch` (an :class:`~areamc.output.OutputBatch`), the file is renamed into place
-    together with the batch's other files.
+    `features` is ``(geometries, crs, layer_name)`` or ``(geometries, crs, layer_name,
+    attributes)`` (:class:`~areamc.vector.Attributes` of the inputs whose attributes each feature
+    carries) for a feature ``--output`` (.gpkg, .geojson, .shp, .fgb).  `types` gives each field's
+    type (:func:`report_types`); a field it does not name is typed by its values.  A CSV file gets
+    its CSVW sidecar (:func:`~areamc.output.csv_metadata`) in the same batch.  With `batch` (an
+    :class:`~areamc.output.OutputBatch`), the files are renamed into place together with the
+    batch's other files.
     """
     fields = columns if fields is None else fields
-    if vector_driver(args.output):
+    path = args.output if path is None else path
+    types = dict(types or {})
+    metadata = _with_density_digests(metadata)
+    if vector_driver(path):
         if features is None:
-            raise OptionError(f"--output {args.output}: this command writes no features; use .csv or .json")
-        geoms, crs, layer = features
-        write_features(args.output, geoms, convert_rows(rows, fields, args.units), crs, layer, batch=batch,
-                       description=metadata.get("caveat"))
+            raise OptionError(f"--output {path}: this command writes no features; give {_TEXT_KINDS}")
+        geoms, crs, layer, *more = features
+        converted = convert_rows(rows, fields, args.units)
+        names = list(converted[0]) if converted else []
+        write_features(path, geoms, converted, crs, layer, batch=batch, description=metadata.get("caveat"),
+                       attributes=more[0] if more else (), types=types,
+                       units_of=field_units(names, fields, args.units, metadata.get("job")),
+                       metadata={**metadata, "units": args.units})
         return
-    if output_format(args) != "table":
+    fmt = output_format(args) if path == args.output else "csv"
+    if fmt != "table":
         columns = fields
-    text = render(rows, columns, fmt=output_format(args), units=args.units, metadata=metadata, header=header,
+    text = render(rows, columns, fmt=fmt, units=args.units, metadata=metadata, header=header,
                   footer=footer, fields=fields)
-    if args.output:
-        write_text(text, args.output, batch=batch)
-    else:
+    if not path:
         sys.stdout.write(text)
+        return
+    with nullcontext(batch) if batch is not None else OutputBatch() as files:
+        write_text(text, path, batch=files)
+        if fmt == "csv":
+            names = list(rows[0]) if rows else [c.field for c in columns]
+            kinds = {n: types.get(n) or value_type(r.get(n) for r in rows) for n in names}
+            units_of = field_units(names, fields, args.units, metadata.get("job"))
+            write_json(csv_metadata(path, names, kinds, units_of, {**metadata, "units": args.units}),
+                       metadata_path(path), batch=files, owner=path)
+
+
+def _with_density_digests(metadata: dict) -> dict:
+    """`metadata` with the SHA-256 of the density file(s) (``density.files``) when the density is a file."""
+    density = metadata.get("density")
+    if not isinstance(density, dict) or "files" in density:
+        return metadata
+    source = density.get("source")
+    if not isinstance(source, str) or not os.path.exists(source):
+        return metadata
+    return {**metadata, "density": {**density, "files": file_digests(source, density.get("layer"))}}
 
 
 #: The options that name output files, by parameter (``--output``, ``--trace``).
 OUTPUT_PARAMS = ("output", "trace")
 
 
-def check_outputs(args, inputs, **others: str | None) -> None:
-    """Check ``--output`` and the other output paths (``trace=args.trace``) before doing any work.
+def check_outputs(args, inputs, *, features: bool = True, **others: str | None) -> None:
+    """Check ``--output`` and the other output paths (``trace=args.trace``) before doing any work,
+    and note the time the run started (``args.started``, for :func:`run_metadata`).
 
     Each must be a writable file in an existing, writable folder; none may be one of `inputs`
     (every input file the command reads, None entries skipped) or an input's sidecar, by real
-    path; and no two outputs may share a path (see :func:`~areamc.output.check_output_path`).
+    path; and no two outputs may share a path (see :func:`~areamc.output.check_output_paths`),
+    each file an output makes included (a CSV's metadata sidecar, a Shapefile's parts).  Then the
+    extensions and ``--format`` must agree (:func:`check_format`; `features` false for a command
+    that writes no features).
     """
-    seen: dict[str, str] = {}
-    for param, path in {"output": args.output, **others}.items():
-        check_output_path(path, inputs, param=param, outputs=seen)
-        if path:
-            seen[param] = path
+    if not getattr(args, "started", None):
+        args.started = utc_now()
+    check_output_paths({"output": args.output, **others}, inputs)
+    check_format(args, features=features)
 
 
 def density_file(args) -> str | None:

@@ -17,6 +17,7 @@ from ..sequential import FALLS_SHORT, MEETS, UNDECIDED, check_claim
 from .density_options import add_density_options, density_metadata, read_density_option
 from .progress import JobBar
 from .common import (
+    Attributes,
     Screen,
     add_layer_options,
     add_output_options,
@@ -250,7 +251,7 @@ def run(args) -> int:
         columns += WIDE_COLUMNS
     geoms = [g for g in regions.geometries for _ in report.ks] if args.output else None  # rows: region by region, k by k
     show(args, SCREEN, report, rows, metadata, inputs=(regions, zones, spec), columns=columns,
-         features=(geoms, regions.crs, "coverage"))
+         features=(geoms, regions.crs, "coverage", [Attributes(regions)]))
     if args.fail_on_shortfall:
         if report.shortfall:
             return 1

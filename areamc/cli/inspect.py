@@ -5,15 +5,14 @@ from __future__ import annotations
 import sys
 
 from ..describe import AREA_FIELDS, describe_layer
-from ..errors import OptionError
 from ..load import read_layer
 from ..output import WIDTH, Column, render, render_fields, wrap, write_text
-from ..vector import vector_driver
 from .common import (
     add_layer_options,
     add_output_options,
     add_plane_options,
     check_outputs,
+    emit,
     layer_options,
     output_format,
     run_metadata,
@@ -144,20 +143,18 @@ def csv_cell(value):
 
 
 def run(args) -> int:
-    if vector_driver(args.output):
-        raise OptionError(f"--output {args.output}: inspect writes text; use .csv, .json or a text file")
-    check_outputs(args, [args.file])
+    check_outputs(args, [args.file], features=False)
     layer = read_layer(args.file, **layer_options(args), kind="any", describing=True)
     info = describe_layer(layer, crs=args.crs, densify_m=args.densify).to_dict()
     fmt = output_format(args)
     if fmt == "table":
         text = table_text(info, args.units)
-    else:
-        flat = {k: csv_cell(v) for k, v in info.items()} if fmt == "csv" else info
-        columns = [Column(k, area=k in AREA_FIELDS) for k in info]
-        text = render([flat], columns, fmt=fmt, units=args.units, metadata=run_metadata(args))
-    if args.output:
-        write_text(text, args.output)
-    else:
-        sys.stdout.write(text)
+        if args.output:
+            write_text(text, args.output)
+        else:
+            sys.stdout.write(text)
+        return 0
+    flat = {k: csv_cell(v) for k, v in info.items()} if fmt == "csv" else info
+    columns = [Column(k, area=k in AREA_FIELDS) for k in info]
+    emit(args, [flat], columns, run_metadata(args, input=layer))  # a CSV file gets its CSVW sidecar
     return 0

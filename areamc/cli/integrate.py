@@ -10,6 +10,7 @@ from ..load import read_layer
 from ..output import Column, wrap
 from ..project import project_layers
 from .common import (
+    Attributes,
     Screen,
     add_layer_options,
     add_output_options,
@@ -81,8 +82,8 @@ def add_parser(sub) -> None:
 
 def _header(args, report, inputs) -> list[str]:
     regions, spec = inputs
-    sources = f"{regions.path} (layer {regions.layer}, {len(regions)} regions), density {spec.kind} {args.density}"
-    lines = header_lines("integrate", sources, report.run, "intervals", f"mean_density per {args.units}")
+    sources = f"{regions.path} (layer {regions.layer}, {len(regions)} regions); density from {spec.kind} {args.density}"
+    lines = header_lines("integrate", sources, report.run, "confidence intervals", f"mean_density per {args.units}")
     methods = sorted({r.method for r in report.rows})
     if methods and not args.wide:
         lines.insert(-1, f"sampling method: {', '.join(methods)} (docs/methods.md; --wide shows it per row)")
@@ -130,6 +131,6 @@ def run(args) -> int:
         "mean_density_unit": f"count per {args.units}",
     }
     geoms = list(regions.geometries) if args.output else None
-    show(args, SCREEN, report, rows, metadata, inputs=(regions, spec), features=(geoms, regions.crs, "totals"),
-         columns=columns)
+    show(args, SCREEN, report, rows, metadata, inputs=(regions, spec),
+         features=(geoms, regions.crs, "totals", [Attributes(regions)]), columns=columns)
     return 0

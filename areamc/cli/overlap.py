@@ -8,6 +8,7 @@ from ..frames import table_columns
 from ..overlap import AUTO, PAIR_SAMPLINGS, SHARED, OverlapReport, estimate_overlaps, overlap_geometries
 from ..project import project_layers
 from .common import (
+    Attributes,
     Screen,
     add_layer_options,
     add_output_options,
@@ -179,5 +180,6 @@ def run(args) -> int:
         "caveat": caveat(reach=any(lay.reach_circles for lay in layers)),
     }
     geoms = overlap_geometries(report, projected[0], projected[1] if args.other else None) if args.output else None
-    show(args, SCREEN, report, rows, metadata, inputs=layers, features=(geoms, layers[0].crs, "overlaps"))
+    attributes = [Attributes(layers[0], "feature_index_a", "_a"), Attributes(layers[-1], "feature_index_b", "_b")]
+    show(args, SCREEN, report, rows, metadata, inputs=layers, features=(geoms, layers[0].crs, "overlaps", attributes))
     return 0
