@@ -450,6 +450,9 @@ class RasterDensity:
 
         xmin, ymin, xmax, ymax = region.bounds
         bx = self._to_raster.transform_bounds(xmin, ymin, xmax, ymax, densify_pts=21)
+        if bx[0] > bx[2]:  # the box crosses the antimeridian of a lon/lat raster: take the grid's whole width
+            left, _, right, _ = self._ds.bounds
+            bx = (min(left, right), bx[1], max(left, right), bx[3])
         win = from_bounds(*bx, transform=self._ds.transform)
         if (win.col_off >= self._ds.width or win.col_off + win.width <= 0
                 or win.row_off >= self._ds.height or win.row_off + win.height <= 0):
@@ -991,11 +994,13 @@ def read_density(
     band: int = 1,
     origin: tuple[float, float] | str | None = None,
     open_options=None,
+    input_crs: str | None = None,
 ) -> DensitySpec:
     """Read the density source `text` names, checking it fully before any sampling.
 
-    `open_options` are GDAL open options of a block layer's driver
-    (:func:`~areamc.load.read_layer`); refused for another kind of source.
+    `open_options` are GDAL open options of a block layer's driver, and `input_crs` the CRS to
+    read its coordinates in (:func:`~areamc.load.read_layer`); both refused for another kind of
+    source.
 
     Parameters
     ----------
@@ -1027,10 +1032,13 @@ def read_density(
     if open_options and kind != "blocks":
         raise OptionError(f"{{param}}: open options serve a block layer, and the density is {kind!r}",
                           param="open_options")
+    if input_crs is not None and kind != "blocks":
+        raise OptionError(f"{{param}}: an input CRS serves a block layer, and the density is {kind!r}",
+                          param="input_crs")
     if kind == "blocks":
         if not count_field:
             raise OptionError(f"{text}: a block layer needs {{param}}", param="count_field")
-        blocks = read_layer(text, layer=layer, open_options=open_options)
+        blocks = read_layer(text, layer=layer, open_options=open_options, input_crs=input_crs)
         return DensitySpec(kind, text, blocks=blocks, counts=block_counts(blocks, count_field),
                            count_field=count_field)
     if kind == "expression":

@@ -225,6 +225,9 @@ def legend(columns: Sequence[Column], prefix: str = "") -> list[str]:
     return wrap(f"({', '.join(short)}: the fields {prefix}<heading>)")
 
 
+#: Label columns: always left-aligned text, even when every label looks like a number.
+ID_FIELDS = ("id", "id_a", "id_b")
+
 #: Width that every default table, header and footer line keeps to (a terminal of 100 columns).
 WIDTH = 100
 
@@ -267,7 +270,8 @@ def _align(cells: list[str], heading: str) -> tuple[list[str], bool]:
 
 def _table(rows: list[dict], columns: Sequence[Column], header: Sequence[str], footer: Sequence[str]) -> str:
     body = [c.cells(rows) for c in columns]
-    aligned, numeric = zip(*(_align(cells, c.heading) for cells, c in zip(body, columns))) if columns else ((), ())
+    aligned, numeric = zip(*(_align(cells, c.heading) if c.field not in ID_FIELDS else (cells, False)
+                             for cells, c in zip(body, columns))) if columns else ((), ())
     widths = [max(len(c.heading), *(len(x) for x in col)) if col else len(c.heading)
               for col, c in zip(aligned, columns)]
     lines = list(header)

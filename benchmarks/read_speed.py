@@ -31,7 +31,6 @@ import tempfile
 import time
 from contextlib import contextmanager
 from functools import partial
-from pathlib import Path
 
 import numpy as np
 import shapely

@@ -321,3 +321,27 @@ def test_bad_input__one_line_exit_2(capsys, tmp_path, case):
     assert lines[0].startswith("areamc: error:"), err
     assert "Traceback" not in err
     assert expected in lines[0], (case, lines[0])
+
+
+def test_blocks_without_crs__density_input_crs_reads_them__else_refused_naming_it(capsys, tmp_path):
+    """Blocks in a Shapefile whose .prj is gone: refused naming --density-input-crs; with it, the one
+    block wholly inside the region gives the exact total its count (areal weighting, Goodchild & Lam
+    1980: a block inside counts whole)."""
+    import fiona
+    from shapely.geometry import box, mapping
+
+    from conftest import assert_refused
+
+    region = tmp_path / "region.gpkg"
+    with fiona.open(region, "w", driver="GPKG", crs="EPSG:4326",
+                    schema={"geometry": "Polygon", "properties": {"rid": "str"}}) as dst:
+        dst.write({"geometry": mapping(box(10.0, 47.0, 10.2, 47.2)), "properties": {"rid": "r"}})
+    blocks = tmp_path / "blocks.shp"
+    with fiona.open(blocks, "w", driver="ESRI Shapefile", crs="EPSG:4326",
+                    schema={"geometry": "Polygon", "properties": {"pop": "int"}}) as dst:
+        dst.write({"geometry": mapping(box(10.05, 47.05, 10.1, 47.1)), "properties": {"pop": 500}})
+    (tmp_path / "blocks.prj").unlink()
+    argv = ["integrate", str(region), "--density", str(blocks), "--count-field", "pop", "-n", "2000", "--seed", "3"]
+    assert_refused(capsys, argv, r"--density-input-crs", tmp_path)
+    doc = run_json(capsys, [*argv, "--density-input-crs", "EPSG:4326"])
+    assert doc["results"][0]["exact"] == pytest.approx(500.0, rel=1e-9)

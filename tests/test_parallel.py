@@ -264,6 +264,8 @@ def _cli_pair(capsys, argv):
     one = run_json(capsys, [*argv, "--workers", "1"])
     two = run_json(capsys, [*argv, "--workers", "2"])
     assert one.pop("command").replace("--workers 1", "--workers 2") == two.pop("command")
+    for doc in (one, two):  # when the run started and finished is the clock's, not the job's
+        assert doc.pop("started") <= doc.pop("finished")
     return one, two
 
 

@@ -412,3 +412,36 @@ def test_cli_integrate__bad_exact_budget_refused(capsys, tmp_path, value):
     raster.write_bytes(TIF.read_bytes())
     assert_refused(capsys, ["integrate", regions, "--regions-layer", "districts", "--density", raster,
                             "--exact-budget", value], r"--exact-budget", tmp_path)
+
+
+def test_lonlat_raster_across_the_antimeridian__region_across_it__counts_its_cells(tmp_path):
+    """A 0.1° lon/lat raster from 175° E to 185° E (past 180°, as GDAL allows) of ones, and a
+    region from 178° E to 178° W by 1° S to 1° N: it holds 40 x 20 whole cells, so the exact
+    total is 800 (arithmetic on the grid). The region's box on the plane maps to longitudes whose
+    minimum exceeds their maximum; that once ended in a traceback."""
+    import subprocess
+    import sys
+
+    import fiona
+    import rasterio
+    from rasterio.transform import from_origin
+    from shapely.geometry import Polygon, mapping
+
+    with rasterio.open(tmp_path / "r.tif", "w", driver="GTiff", width=100, height=100, count=1, dtype="float32",
+                       crs="EPSG:4326", transform=from_origin(175, 5, 0.1, 0.1)) as ds:
+        ds.write(np.ones((100, 100), dtype="float32"), 1)
+    with fiona.open(tmp_path / "reg.geojson", "w", driver="GeoJSON", crs="EPSG:4326",
+                    schema={"geometry": "Polygon", "properties": {"id": "str"}}) as dst:
+        dst.write({"geometry": mapping(Polygon([(178, -1), (-178, -1), (-178, 1), (178, 1)])),
+                   "properties": {"id": "a"}})
+    proc = subprocess.run([sys.executable, "-m", "areamc", "integrate", str(tmp_path / "reg.geojson"), "--density",
+                           str(tmp_path / "r.tif"), "--seed", "1", "-n", "20000", "--format", "json"],
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    import json
+
+    (row,) = json.loads(proc.stdout)["results"]
+    # 1e-6: each cell is the straight-sided quadrilateral of its corners on the plane, while the
+    # region's edges along the parallels are densified every 1 km, so the two differ by slivers
+    assert row["exact"] == pytest.approx(800.0, rel=1e-6)
+    assert abs(row["estimate"] - 800.0) <= 4 * row["std_error"]

@@ -24,6 +24,9 @@ def add_density_options(parser: argparse.ArgumentParser, *, required: bool) -> N
                         help="the point (WGS84 degrees) an expression's east, north are measured from, in metres "
                         "on an equal-area plane centred there")
     parser.add_argument("--density-layer", metavar="NAME", help="layer of the block file")
+    parser.add_argument("--density-input-crs", metavar="CRS",
+                        help="CRS to read the block file's coordinates in (EPSG code, PROJ string or WKT): needed "
+                        "when it declares none; one that differs from a declared CRS overrides it, with a warning")
     parser.add_argument("--density-open-option", action="append", metavar="KEY=VALUE",
                         help="a GDAL open option of the block file's driver, repeated for several (such as "
                         "X_POSSIBLE_NAMES=lon for a CSV)")
@@ -43,11 +46,12 @@ def read_density_option(args) -> DensitySpec | None:
             warnings.warn(AreamcWarning("{param} is not used: no density was named (it is the point a density "
                                         "expression's east, north are measured from)", param="origin"), stacklevel=2)
         return None
-    with flags(layer="--density-layer", id_field="--density-id-field", input_crs="--density-input-crs",
+    with flags(layer="--density-layer", input_crs="--density-input-crs",
                open_options="--density-open-option"):
         return read_density(args.density, kind=args.density_kind, layer=args.density_layer,
                             count_field=args.count_field, values=args.raster_values, band=args.band,
-                            origin=args.origin, open_options=args.density_open_option)
+                            origin=args.origin, open_options=args.density_open_option,
+                            input_crs=args.density_input_crs)
 
 
 def density_metadata(args, spec: DensitySpec | None) -> dict | None:
