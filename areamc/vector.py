@@ -236,7 +236,8 @@ def _description(caveat: str | None, units_of: Mapping[str, str | None], units: 
 def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, layer: str, *,
                    batch: OutputBatch | None = None, description: str | None = None,
                    attributes: Sequence[Attributes] = (), types: Mapping[str, str] | None = None,
-                   units_of: Mapping[str, str | None] | None = None, metadata: Mapping | None = None) -> None:
+                   units_of: Mapping[str, str | None] | None = None, metadata: Mapping | None = None,
+                   staged: bool = False) -> None:
     """Write `rows` as attributes of `geometries` (shapely, in `crs`) to a GeoPackage (``.gpkg``),
     GeoJSON (``.geojson``), Shapefile (``.shp``) or FlatGeobuf (``.fgb``) file.
 
@@ -278,6 +279,10 @@ def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, lay
     Shapefile or FlatGeobuf file.  A Shapefile's field names are cut to 10 bytes
     (:func:`shapefile_names`); ``fields`` maps them back.  A FlatGeobuf file is written without
     a spatial index, so that its features keep the rows' order.
+
+    With `staged` (GeoPackage only), `path` is a temporary file the caller staged (an
+    :class:`~areamc.output.OutputBatch` name) and the layer is written into it directly, beside
+    the layers already there: one file of several layers, renamed into place by the caller.
 
     Every file is written under a temporary name beside `path` and renamed into
     place (when `batch` commits, if given), so a failure leaves no partial
@@ -335,8 +340,10 @@ def write_features(path: str, geometries, rows: list[dict], crs: pyproj.CRS, lay
         options.update(encoding="utf-8")
         staging.update(parts=SHAPEFILE_WRITTEN, stale=SHAPEFILE_STALE)
     suffix = os.path.splitext(path)[1]
+    if staged and driver != "GPKG":
+        raise ValueError("staged: only a GeoPackage holds several layers")
     with nullcontext(batch) if batch is not None else OutputBatch() as files:
-        with files.staging(path, suffix, create=False, **staging) as tmp:
+        with nullcontext(path) if staged else files.staging(path, suffix, create=False, **staging) as tmp:
             try:
                 with fiona.open(tmp, "w", driver=driver, schema=schema, **options) as dst:
                     for n, geom in enumerate(geoms):

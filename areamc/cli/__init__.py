@@ -18,12 +18,12 @@ from contextlib import contextmanager
 
 from .. import __version__
 from ..errors import AreamcError, AreamcNotice, AreamcWarning
-from . import area, coverage, inspect, integrate, overlap
+from . import area, audit, coverage, inspect, integrate, overlap
 from .common import OUTPUT_PARAMS, Parser, describe, flag_names
 
 __all__ = ["main", "build_parser"]
 
-COMMANDS = (area, overlap, coverage, integrate, inspect)
+COMMANDS = (area, overlap, coverage, integrate, inspect, audit)
 
 #: Exit statuses of a run ended by a signal: 128 + the signal number (common practice of POSIX shells).
 EXIT_SIGINT = 128 + signal.SIGINT

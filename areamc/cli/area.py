@@ -23,9 +23,11 @@ from .common import (
     layer_options,
     positive_int,
     emit,
+    Outcome,
+    add_plot_option,
     report_types,
     run_metadata,
-    show,
+    show_outcome,
     stop_rule,
 )
 from .progress import ProgressBar
@@ -77,17 +79,35 @@ def add_parser(sub) -> None:
                    "to this CSV file (uniform sampler only)")
     p.add_argument("--trace-every", type=positive_int, default=10_000, metavar="K",
                    help="points between rows of the --trace file (default 10,000)")
+    add_plot_option(p, "area")
     add_output_options(p, progress=True)
     p.set_defaults(run=run)
 
 
 def run(args) -> int:
-    stop = stop_rule(args)
-    check_outputs(args, [args.file], trace=args.trace)
+    # --plot draws the running estimates, which only the uniform sampler records
+    return show(args, compute(args, trace=bool(args.plot) and args.sampler == "uniform"))
+
+
+def read_inputs(args) -> tuple:
+    """Read the input as the command does: ``(layer, (projected layer,))`` (plane metres)."""
     layer = read_layer(args.file, **layer_options(args))
-    projected = project_layer(layer, crs=args.crs, densify_m=args.densify)
+    return layer, (project_layer(layer, crs=args.crs, densify_m=args.densify),)
+
+
+def compute(args, *, progress=None, features: bool | None = None, trace: bool = False) -> Outcome:
+    """Read, project and estimate, writing nothing: the command's :class:`Outcome` (rows in m²).
+
+    `progress` replaces the terminal bar (an ``estimate_areas`` progress callable); the features'
+    geometries are the input's, in its CRS (`features` changes nothing here: they cost nothing).
+    With `trace`, the running estimates are kept every ``--trace-every`` points as with ``--trace``
+    (uniform sampler only), for the report's convergence pictures.
+    """
+    stop = stop_rule(args)
+    check_outputs(args, [args.file], trace=args.trace, plot=args.plot)
+    layer, (projected,) = read_inputs(args)
     total = stop.point_budget * len(projected) if not stop.adaptive else None
-    bar = ProgressBar(total, args.units, args.quiet)
+    bar = ProgressBar(total, args.units, args.quiet) if progress is None else progress
     try:
         report = estimate_areas(
             projected,
@@ -97,19 +117,26 @@ def run(args) -> int:
             sampler=args.sampler,
             chunk=args.chunk,
             exact=not args.no_exact,
-            trace_every=args.trace_every if args.trace else None,
+            trace_every=args.trace_every if args.trace or trace else None,
             progress=bar,
             workers=args.workers,
         )
     finally:
-        bar.close()
+        if progress is None:
+            bar.close()
     metadata = {**run_metadata(args, input=layer), **report.metadata()}
     rows = [row.to_dict() for row in report.rows]
+    return Outcome(report, rows, metadata, SCREEN, features=(layer.geometries, layer.crs, "areas", [Attributes(layer)]),
+                   layers=(projected,), inputs=layer)
+
+
+def show(args, outcome: Outcome) -> int:
+    """Write an :class:`Outcome` of :func:`compute` per the output options (and ``--trace``, ``--plot``); the
+    exit status."""
     with OutputBatch() as batch:  # the trace and the results are renamed into place once both are written
         if args.trace:  # CSV with its CSVW sidecar, like --output
-            trace = [t.to_dict() for t in report.trace_rows()]
-            emit(args, trace, TRACE_COLUMNS, metadata, path=args.trace, batch=batch,
-                 types=report_types(report, "trace"))
-        show(args, SCREEN, report, rows, metadata, inputs=layer, batch=batch,
-             features=(layer.geometries, layer.crs, "areas", [Attributes(layer)]))
-    return 0
+            trace = [t.to_dict() for t in outcome.report.trace_rows()]
+            emit(args, trace, TRACE_COLUMNS, outcome.metadata, path=args.trace, batch=batch,
+                 types=report_types(outcome.report, "trace"))
+        show_outcome(args, outcome, batch=batch)
+    return outcome.status

@@ -68,6 +68,11 @@ __all__ = [
     "flags",
     "flag_names",
     "Screen",
+    "Outcome",
+    "show_outcome",
+    "add_plot_option",
+    "write_plot",
+    "write_feature_rows",
     "flag_line",
 ]
 
@@ -531,7 +536,8 @@ _FEATURE_KINDS = ", ".join(FEATURE_EXTENSIONS[:-1]) + " or " + FEATURE_EXTENSION
 def check_format(args, *, features: bool = True) -> None:
     """Refuse, before any work, an ``--output`` extension areamc does not write (or, with
     `features` false, a feature extension), a ``--format`` that contradicts a ``.csv``/``.json``
-    extension or comes with a feature extension, and a ``--trace`` path not ending in ``.csv``."""
+    extension or comes with a feature extension, a ``--trace`` path not ending in ``.csv`` and a
+    ``--plot`` path not ending in ``.png``."""
     path = args.output
     if path:
         ext = _extension(path)
@@ -551,6 +557,9 @@ def check_format(args, *, features: bool = True) -> None:
     trace = getattr(args, "trace", None)
     if trace and _extension(trace) != ".csv":
         raise OptionError(f"--trace {trace}: the trace is CSV; give a path ending in .csv")
+    plot = getattr(args, "plot", None)
+    if plot and _extension(plot) != ".png":
+        raise OptionError(f"--plot {plot}: the picture is PNG; give a path ending in .png")
 
 
 def output_format(args) -> str:
@@ -584,6 +593,82 @@ def zone_layer(args, path: str, **options):
     radius = parse_distance(args.radius) if args.radius is not None else None
     return read_zones(path, radius_m=radius, radius_field=args.radius_field, vertices=args.circle_vertices,
                       vertex_cap=args.vertex_cap, radius_unit=args.radius_unit, **options)
+
+
+@dataclass(frozen=True)
+class Outcome:
+    """What a command computed, before anything is written (its ``compute(args)``; ``show(args,
+    outcome)`` writes it).
+
+    Attributes
+    ----------
+    report : object
+        The library's report (``AreaReport``, ``OverlapReport``, ``CoverageReport``, ``IntegrateReport``).
+    rows : list of dict
+        The rows as the JSON output holds them before unit conversion: areas in m² of the plane.
+    metadata : dict
+        The run's metadata (the JSON output's keys without ``results``), areas in m².
+    screen : Screen
+        The command's screen (columns, every field for units, header and footer).
+    columns : tuple of Column or None
+        The table's columns when they differ from the screen's (``--wide``, ``--claim``).
+    features : tuple or None
+        ``(geometries, crs, layer_name, attributes)`` for a feature output: shapely geometries in
+        the input layer's CRS (None when the command was not asked for them), its pyproj CRS, the
+        layer name and the :class:`~areamc.vector.Attributes` each feature carries.
+    layers : tuple
+        The projected layers the job ran on (plane metres; for maps).
+    inputs : object
+        What the screen's header is given (the layer, or a tuple of layers and the density spec).
+    status : int
+        The command's exit status (coverage's ``--fail-on-shortfall``: 1 or 3), else 0.
+    """
+
+    report: object
+    rows: list
+    metadata: dict
+    screen: Screen
+    columns: tuple | None = None
+    features: tuple | None = None
+    layers: tuple = ()
+    inputs: object = None
+    status: int = 0
+
+
+#: What ``--plot FILE.png`` draws, per command.
+PLOTS = {
+    "area": "each feature's running estimate with its interval and the exact area (without a trace, as "
+            "with --sampler sobol or stratified, the final estimates against the exact areas)",
+    "integrate": "each region's total with its interval against the exact total",
+    "coverage": "a map of the regions shaded by the share covered by at least the smallest --at-least, "
+                "with the zones outlined",
+    "overlap": "the multiplicity profile: area covered by exactly k zones, with intervals",
+}
+
+
+def add_plot_option(parser: argparse.ArgumentParser, command: str) -> None:
+    """``--plot FILE.png``: also draw the command's picture (:data:`PLOTS`) into a PNG file."""
+    parser.add_argument("--plot", metavar="FILE.png",
+                        help=f"also draw {PLOTS[command]} into this PNG file")
+
+
+def write_plot(args, outcome: Outcome, *, batch=None) -> None:
+    """With ``--plot``, draw the command's picture of `outcome` (:func:`areamc.report.command_picture`;
+    the command is the report's job) and write it atomically (in `batch`, when given)."""
+    if not getattr(args, "plot", None):
+        return
+    from ..report import command_picture, write_png
+
+    write_png(command_picture(outcome.report.run.job, outcome, units=args.units).png, args.plot, batch=batch)
+
+
+def show_outcome(args, outcome: Outcome, *, batch=None) -> None:
+    """Render and write a command's :class:`Outcome` per the output options (see :func:`show`), and
+    its ``--plot`` picture (:func:`write_plot`): the files are renamed into place together."""
+    with nullcontext(batch) if batch is not None else OutputBatch() as files:
+        write_plot(args, outcome, batch=files)
+        show(args, outcome.screen, outcome.report, outcome.rows, outcome.metadata, inputs=outcome.inputs,
+             features=outcome.features, columns=outcome.columns, batch=files)
 
 
 def show(args, screen: Screen, report, rows, metadata, *, inputs=None, features=None, columns=None,
@@ -644,13 +729,7 @@ def emit(args, rows, columns, metadata, header=(), footer=(), features=None, fie
     if vector_driver(path):
         if features is None:
             raise OptionError(f"--output {path}: this command writes no features; give {_TEXT_KINDS}")
-        geoms, crs, layer, *more = features
-        converted = convert_rows(rows, fields, args.units)
-        names = list(converted[0]) if converted else []
-        write_features(path, geoms, converted, crs, layer, batch=batch, description=metadata.get("caveat"),
-                       attributes=more[0] if more else (), types=types,
-                       units_of=field_units(names, fields, args.units, metadata.get("job")),
-                       metadata={**metadata, "units": args.units})
+        write_feature_rows(path, rows, fields, args.units, metadata, features, types=types, batch=batch)
         return
     fmt = output_format(args) if path == args.output else "csv"
     if fmt != "table":
@@ -670,6 +749,24 @@ def emit(args, rows, columns, metadata, header=(), footer=(), features=None, fie
                        metadata_path(path), batch=files, owner=path)
 
 
+def write_feature_rows(path: str, rows, fields, units: str, metadata: dict, features, *, types=None, batch=None,
+                       staged: bool = False) -> None:
+    """Write `rows` (areas in m²) as features: converted to `units` by `fields`, each field's unit, the
+    caution as the layer's description and the run's metadata (:func:`~areamc.vector.write_features`).
+
+    `features` is ``(geometries, crs, layer_name[, attributes])`` (see :func:`emit`); with `staged`,
+    `path` is a temporary GeoPackage the caller staged, and the layer is added to it (one file of
+    several layers).
+    """
+    geoms, crs, layer, *more = features
+    converted = convert_rows(rows, fields, units)
+    names = list(converted[0]) if converted else []
+    write_features(path, geoms, converted, crs, layer, batch=batch, description=metadata.get("caveat"),
+                   attributes=more[0] if more else (), types=dict(types or {}),
+                   units_of=field_units(names, fields, units, metadata.get("job")),
+                   metadata={**metadata, "units": units}, staged=staged)
+
+
 def _with_density_digests(metadata: dict) -> dict:
     """`metadata` with the SHA-256 of the density file(s) (``density.files``) when the density is a file."""
     density = metadata.get("density")
@@ -681,8 +778,8 @@ def _with_density_digests(metadata: dict) -> dict:
     return {**metadata, "density": {**density, "files": file_digests(source, density.get("layer"))}}
 
 
-#: The options that name output files, by parameter (``--output``, ``--trace``).
-OUTPUT_PARAMS = ("output", "trace")
+#: The options that name output files, by parameter (``--output``, ``--trace``, ``--plot``).
+OUTPUT_PARAMS = ("output", "trace", "plot")
 
 
 def check_outputs(args, inputs, *, features: bool = True, **others: str | None) -> None:

@@ -32,10 +32,12 @@ from .common import (
     header_lines,
     input_flags,
     layer_options,
+    Outcome,
+    add_plot_option,
     output_format,
     positive_float,
     run_metadata,
-    show,
+    show_outcome,
     stop_rule,
     whole_number,
     zone_layer,
@@ -130,6 +132,7 @@ def add_parser(sub) -> None:
                    help="time allowed per region for the exact shares at k >= 2 (default 10)")
     p.add_argument("--wide", action="store_true",
                    help="also show each row's region_points (points that fell in the region) and hits")
+    add_plot_option(p, "coverage")
     add_output_options(p, progress=True)
     p.set_defaults(run=run)
 
@@ -199,10 +202,12 @@ SCREEN = Screen(COLUMNS, ALL_FIELDS, _header, _footer)
 
 
 def run(args) -> int:
-    if args.fail_on_shortfall and args.claim is None:
-        raise OptionError("--fail-on-shortfall needs --claim")
-    stop = stop_rule(args, scale=1.0, below=1.0)  # an absolute tolerance is a share
-    check_outputs(args, [args.regions, args.zones, density_file(args)])
+    return show(args, compute(args))
+
+
+def read_inputs(args) -> tuple:
+    """Read the inputs as the command does: ``(regions, zones, density spec or None, projected layers)``,
+    the projected ones (plane metres) regions, zones and the blocks if the density has them."""
     with input_flags("regions_"):
         regions = read_layer(args.regions, **layer_options(args, "regions_"))
     with input_flags("zones_"):
@@ -210,11 +215,26 @@ def run(args) -> int:
     args._zones = zones
     spec = read_density_option(args)
     layers = [regions, zones] + ([spec.blocks] if spec is not None and spec.blocks is not None else [])
-    projected = project_layers(layers, crs=args.crs, densify_m=args.densify)
+    return regions, zones, spec, tuple(project_layers(layers, crs=args.crs, densify_m=args.densify))
+
+
+def compute(args, *, progress=None, features: bool | None = None) -> Outcome:
+    """Read, project and estimate, writing nothing: the command's :class:`Outcome` (rows in m²), its
+    status that of ``--fail-on-shortfall``.
+
+    `progress` replaces the terminal bar (a :data:`~areamc.parallel.JobProgress`); the features'
+    geometries (the regions', input CRS, one per row) are given when `features` is true (default:
+    when ``--output`` is given).
+    """
+    if args.fail_on_shortfall and args.claim is None:
+        raise OptionError("--fail-on-shortfall needs --claim")
+    stop = stop_rule(args, scale=1.0, below=1.0)  # an absolute tolerance is a share
+    check_outputs(args, [args.regions, args.zones, density_file(args)], plot=args.plot)
+    regions, zones, spec, projected = read_inputs(args)
     density = None
     if spec is not None:
         density = build_density(spec, projected[0].plane, projected[2] if len(projected) > 2 else None, projected[0])
-    bar = JobBar(args.quiet)
+    bar = JobBar(args.quiet) if progress is None else progress
     try:
         report = estimate_coverage(
             projected[0],
@@ -234,7 +254,8 @@ def run(args) -> int:
             progress=bar,
         )
     finally:
-        bar.close()
+        if progress is None:
+            bar.close()
         if hasattr(density, "close"):
             density.close()
     rows = [r.to_dict(population=density is not None) for r in report.rows]
@@ -249,12 +270,18 @@ def run(args) -> int:
         columns = tuple(c for c in COLUMNS if c.field != "std_error") + (Column("verdict"),)
     if args.wide:
         columns += WIDE_COLUMNS
-    geoms = [g for g in regions.geometries for _ in report.ks] if args.output else None  # rows: region by region, k by k
-    show(args, SCREEN, report, rows, metadata, inputs=(regions, zones, spec), columns=columns,
-         features=(geoms, regions.crs, "coverage", [Attributes(regions)]))
+    if features is None:
+        features = bool(args.output)
+    geoms = [g for g in regions.geometries for _ in report.ks] if features else None  # rows: region by region, k by k
+    status = 0
     if args.fail_on_shortfall:
-        if report.shortfall:
-            return 1
-        if report.undecided:
-            return EXIT_UNDECIDED
-    return 0
+        status = 1 if report.shortfall else EXIT_UNDECIDED if report.undecided else 0
+    return Outcome(report, rows, metadata, SCREEN, columns=columns,
+                   features=(geoms, regions.crs, "coverage", [Attributes(regions)]), layers=tuple(projected),
+                   inputs=(regions, zones, spec), status=status)
+
+
+def show(args, outcome: Outcome) -> int:
+    """Write an :class:`Outcome` of :func:`compute` per the output options; the exit status."""
+    show_outcome(args, outcome)
+    return outcome.status

@@ -24,8 +24,10 @@ from .common import (
     header_lines,
     input_flags,
     layer_options,
+    Outcome,
+    add_plot_option,
     run_metadata,
-    show,
+    show_outcome,
     stop_rule,
 )
 from .density_options import add_density_options, density_metadata, read_density_option
@@ -76,6 +78,7 @@ def add_parser(sub) -> None:
                    help="time allowed per region for the exact total (default 10)")
     p.add_argument("--wide", action="store_true",
                    help="also show each row's points and sampling method")
+    add_plot_option(p, "integrate")
     add_output_options(p, units="density", progress=True)
     p.set_defaults(run=run)
 
@@ -104,22 +107,39 @@ SCREEN = Screen(COLUMNS, ALL_FIELDS, _header, _footer)
 
 
 def run(args) -> int:
-    stop = stop_rule(args, scale=1.0)  # an absolute tolerance is a count (e.g. persons)
-    check_outputs(args, [args.regions, density_file(args)])
+    return show(args, compute(args))
+
+
+def read_inputs(args) -> tuple:
+    """Read the inputs as the command does: ``(regions, density spec, projected layers)``, the
+    projected ones (plane metres) the regions and the blocks if the density has them."""
     with input_flags("regions_"):
         regions = read_layer(args.regions, **layer_options(args, "regions_"))
     spec = read_density_option(args)
     layers = [regions] + ([spec.blocks] if spec.blocks is not None else [])
-    projected = project_layers(layers, crs=args.crs, densify_m=args.densify)
+    return regions, spec, tuple(project_layers(layers, crs=args.crs, densify_m=args.densify))
+
+
+def compute(args, *, progress=None, features: bool | None = None) -> Outcome:
+    """Read, project and integrate, writing nothing: the command's :class:`Outcome` (rows in m²).
+
+    `progress` replaces the terminal bar (a :data:`~areamc.parallel.JobProgress`); the features'
+    geometries (the regions', input CRS) are given when `features` is true (default: when
+    ``--output`` is given).
+    """
+    stop = stop_rule(args, scale=1.0)  # an absolute tolerance is a count (e.g. persons)
+    check_outputs(args, [args.regions, density_file(args)], plot=args.plot)
+    regions, spec, projected = read_inputs(args)
     source = build_density(spec, projected[0].plane, projected[1] if len(projected) > 1 else None, projected[0])
-    bar = JobBar(args.quiet)
+    bar = JobBar(args.quiet) if progress is None else progress
     try:
         report = integrate_density(projected[0], source, stop=stop, confidence=args.confidence, seed=args.seed,
                                    sampler=args.sampler, chunk=args.chunk, importance=not args.no_importance,
                                    exact=not args.no_exact, exact_time_limit_s=args.exact_budget,
                                    workers=args.workers, progress=bar)
     finally:
-        bar.close()
+        if progress is None:
+            bar.close()
         if hasattr(source, "close"):
             source.close()
     rows = [r.to_dict() for r in report.rows]
@@ -130,7 +150,15 @@ def run(args) -> int:
         **report.metadata(),
         "mean_density_unit": f"count per {args.units}",
     }
-    geoms = list(regions.geometries) if args.output else None
-    show(args, SCREEN, report, rows, metadata, inputs=(regions, spec),
-         features=(geoms, regions.crs, "totals", [Attributes(regions)]), columns=columns)
-    return 0
+    if features is None:
+        features = bool(args.output)
+    geoms = list(regions.geometries) if features else None
+    return Outcome(report, rows, metadata, SCREEN, columns=columns,
+                   features=(geoms, regions.crs, "totals", [Attributes(regions)]), layers=tuple(projected),
+                   inputs=(regions, spec))
+
+
+def show(args, outcome: Outcome) -> int:
+    """Write an :class:`Outcome` of :func:`compute` per the output options; the exit status."""
+    show_outcome(args, outcome)
+    return outcome.status

@@ -22,10 +22,12 @@ from .common import (
     header_lines,
     input_flags,
     layer_options,
+    Outcome,
+    add_plot_option,
     output_format,
     positive_float,
     run_metadata,
-    show,
+    show_outcome,
     stop_rule,
     zone_layer,
 )
@@ -131,6 +133,7 @@ def add_parser(sub) -> None:
                    "that sample's size; pays off where zones overlap densely); per-pair: each pair sampled in its "
                    "own box (--points per pair; best for small overlaps); auto (default): shared for an absolute "
                    "--tolerance, per-pair otherwise")
+    add_plot_option(p, "overlap")
     add_output_options(p, progress=True)
     p.set_defaults(run=run)
 
@@ -141,17 +144,31 @@ def report_layers(args) -> tuple:
 
 
 def run(args) -> int:
-    stop = stop_rule(args)
-    inputs = [args.zones] + ([args.other] if args.other else [])
-    check_outputs(args, inputs)
+    return show(args, compute(args))
+
+
+def read_inputs(args) -> tuple:
+    """Read the inputs as the command does: ``(zone layers, projected layers)`` (plane metres)."""
     with input_flags("zones_"):
         layers = [zone_layer(args, args.zones, **layer_options(args, "zones_"))]
     if args.other:
         with input_flags("other_"):
             layers.append(zone_layer(args, args.other, **layer_options(args, "other_")))
     args._layers = tuple(layers)
-    projected = project_layers(layers, crs=args.crs, densify_m=args.densify)
-    bar = JobBar(args.quiet)
+    return layers, tuple(project_layers(layers, crs=args.crs, densify_m=args.densify))
+
+
+def compute(args, *, progress=None, features: bool | None = None) -> Outcome:
+    """Read, project and estimate, writing nothing: the command's :class:`Outcome` (rows in m²).
+
+    `progress` replaces the terminal bar (a :data:`~areamc.parallel.JobProgress`); the overlaps'
+    geometries (input CRS) are formed when `features` is true (default: when ``--output`` is given).
+    """
+    stop = stop_rule(args)
+    inputs = [args.zones] + ([args.other] if args.other else [])
+    check_outputs(args, inputs, plot=args.plot)
+    layers, projected = read_inputs(args)
+    bar = JobBar(args.quiet) if progress is None else progress
     try:
         report = estimate_overlaps(
             projected[0],
@@ -170,7 +187,8 @@ def run(args) -> int:
             progress=bar,
         )
     finally:
-        bar.close()
+        if progress is None:
+            bar.close()
     rows = [r.to_dict() for r in report.rows]
     profile = [m.to_dict() for m in report.multiplicity]
     metadata = {
@@ -179,7 +197,15 @@ def run(args) -> int:
         "multiplicity": convert_rows(profile, PROFILE_FIELDS, args.units),
         "caveat": caveat(reach=any(lay.reach_circles for lay in layers)),
     }
-    geoms = overlap_geometries(report, projected[0], projected[1] if args.other else None) if args.output else None
+    if features is None:
+        features = bool(args.output)
+    geoms = overlap_geometries(report, projected[0], projected[1] if args.other else None) if features else None
     attributes = [Attributes(layers[0], "feature_index_a", "_a"), Attributes(layers[-1], "feature_index_b", "_b")]
-    show(args, SCREEN, report, rows, metadata, inputs=layers, features=(geoms, layers[0].crs, "overlaps", attributes))
-    return 0
+    return Outcome(report, rows, metadata, SCREEN, features=(geoms, layers[0].crs, "overlaps", attributes),
+                   layers=tuple(projected), inputs=layers)
+
+
+def show(args, outcome: Outcome) -> int:
+    """Write an :class:`Outcome` of :func:`compute` per the output options; the exit status."""
+    show_outcome(args, outcome)
+    return outcome.status
