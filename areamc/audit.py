@@ -205,8 +205,8 @@ class AuditResult:
 
     `gate` is ``meets`` (every row meets its claim), ``falls-short`` (some row falls short),
     ``undecided`` (none falls short, some is undecided) or ``none`` (the plan states no claim).  `files` maps ``csv``,
-    ``json``, ``gpkg``, ``manifest``, ``report`` to the absolute paths written (``report`` only
-    when :mod:`areamc.report` is available).  Times are ISO 8601 in UTC.
+    ``json``, ``gpkg``, ``manifest``, ``report`` to the absolute paths written (``gpkg`` only
+    when some job finished).  Times are ISO 8601 in UTC.
     """
 
     plan: object
@@ -420,8 +420,8 @@ def _our_files(folder: str) -> list[str]:
 def _check_folder(output_dir: str, resume: bool, overwrite: bool) -> None:
     """Refuse, before any work, a results folder that cannot be used as asked."""
     if resume and overwrite:
-        raise OptionError("{resume} and {overwrite} exclude each other: --resume finishes the audit the folder "
-                          "holds, --overwrite starts afresh", params=("resume", "overwrite"))
+        raise OptionError("{resume} and {overwrite} exclude each other: {resume} finishes the audit the folder "
+                          "holds, {overwrite} starts afresh", params=("resume", "overwrite"))
     if os.path.lexists(output_dir) and not os.path.isdir(output_dir):
         raise OptionError(f"{{param}} {output_dir}: exists and is not a folder", param="output_dir")
     parent = os.path.dirname(os.path.abspath(output_dir))
@@ -431,8 +431,9 @@ def _check_folder(output_dir: str, resume: bool, overwrite: bool) -> None:
         if not os.access(output_dir, os.W_OK | os.X_OK):
             raise OptionError(f"{{param}} {output_dir}: the folder is not writable", param="output_dir")
         if os.listdir(output_dir) and not (resume or overwrite):
-            raise OptionError(f"{{param}} {output_dir}: the results folder exists; give --resume to finish the "
-                              "audit it holds, or --overwrite to start afresh", param="output_dir")
+            raise OptionError(f"{{output_dir}} {output_dir}: the results folder exists; give {{resume}} to finish "
+                              "the audit it holds, or {overwrite} to start afresh",
+                              params=("output_dir", "resume", "overwrite"))
     elif not os.access(parent, os.W_OK | os.X_OK):
         raise OptionError(f"{{param}} {output_dir}: cannot create it, {parent} is not writable", param="output_dir")
 
@@ -453,14 +454,14 @@ def _read_journal(path: str, plan) -> tuple[dict | None, dict[str, dict]]:
             entry = json.loads(line)
         except ValueError:
             if any(rest.strip() for rest in lines[n + 1:]):
-                raise OptionError(f"{{param}}: {path}:{n + 1}: the journal is damaged; give --overwrite to start "
-                                  "afresh", param="resume") from None
+                raise OptionError(f"{{resume}}: {path}:{n + 1}: the journal is damaged; give {{overwrite}} to "
+                                  "start afresh", params=("resume", "overwrite")) from None
             break  # the last line, cut short by a crash: that job runs again
         if header is None:
             header = entry
             if header.get("plan_sha256") != plan.sha256:
-                raise OptionError(f"{{param}}: {path} was written for another version of the plan (its SHA-256 "
-                                  "differs); give --overwrite to start afresh", param="resume")
+                raise OptionError(f"{{resume}}: {path} was written for another version of the plan (its SHA-256 "
+                                  "differs); give {overwrite} to start afresh", params=("resume", "overwrite"))
             continue
         name = entry.get("job")
         if name in argv_of and entry.get("argv") == argv_of[name] and entry.get("status") == DONE:
@@ -507,6 +508,7 @@ class _Journal:
         os.fsync(self._handle.fileno())
 
     def close(self) -> None:
+        """Close the journal (again: no effect)."""
         self._handle.close()
 
 
@@ -542,9 +544,15 @@ class _Progress:
             line = f"areamc: audit: job {self.finished}/{self.total} {result.name} ({result.kind}) {what}"
             (self._log or (lambda text: print(text, file=sys.stderr, flush=True)))(line)
 
+    def writing(self) -> None:
+        """Say that the results files and the report are being written (on the bar only)."""
+        if self._bar is not None:
+            self._bar(self.finished, self.total, "job", "writing the results and report.html")
+
     def close(self) -> None:
         if self._bar is not None:
             self._bar.close()
+            self._bar = None
 
 
 # ----------------------------------------------------------------------------------- run
@@ -677,8 +685,8 @@ def run_audit(plan, output_dir: str | None = None, *, resume: bool = False, over
             def on_result(job, payload, message):
                 result = _result(plan, job, payload, message)
                 results[job.name] = result
-                for text in result.warnings:
-                    print(f"areamc: warning: job {job.name}: {text}", file=sys.stderr)
+                for text in result.warnings:  # as the job's command said them (in this process or a worker)
+                    warnings.warn(AreamcWarning(f"job {job.name}: {text}"), stacklevel=2)
                 progress.job(result)
 
             pending = [job for job in plan.jobs if job.name not in done]
@@ -686,23 +694,26 @@ def run_audit(plan, output_dir: str | None = None, *, resume: bool = False, over
                 _run_dask(client, pending, journal, on_result)
             else:
                 _run_local(pending, journal, progress, quiet, on_result)
-        finally:
-            progress.close()
             journal.close()
+            progress.writing()
+            return _finish(plan, output_dir, results, header, scheduler, command)
+        finally:
+            journal.close()
+            progress.close()
     finally:
         if client is not None:
             client.close()
+
+
+def _finish(plan, output_dir, results, header, scheduler, command) -> AuditResult:
+    """The audit's result from each job's, and its results files written."""
+    from .report import write_report
+
     jobs = tuple(results[job.name] for job in plan.jobs)
     claims = tuple(c for job in jobs for c in job.claims)
     gate = ("none" if not claims else _SHORT if any(c.short for c in claims)
             else _UNDECIDED if any(c.undecided for c in claims) else _MEETS)
     files = {kind: os.path.join(output_dir, name) for kind, name in RESULT_FILES.items()}
-    try:
-        from .report import write_report
-    except ImportError:  # pragma: no cover - the report module is part of areamc
-        write_report = None
-    if write_report is None:
-        files.pop("report")
     if not any(job.status == DONE and job.features for job in jobs):
         files.pop("gpkg")
     audit = AuditResult(plan, output_dir, jobs, claims, gate, header["started"], utc_now(), scheduler, files)
@@ -832,5 +843,4 @@ def _write_results(audit: AuditResult, command: str | None, write_report) -> Non
         if "gpkg" in audit.files:
             _write_gpkg(audit.files["gpkg"], audit, batch)
         write_json(_manifest(audit, command), audit.files["manifest"], batch=batch)
-        if write_report is not None:
-            write_report(audit.files["report"], audit, batch=batch)
+        write_report(audit.files["report"], audit, batch=batch)

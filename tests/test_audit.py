@@ -532,3 +532,32 @@ def test_audit__manifest_and_results_keys__are_in_the_vocabulary(full_run):
 
 def _union_keys(rows):
     return {key for row in rows for key in row}
+
+
+def test_audit__on_a_terminal__an_overall_bar_counts_the_jobs(full_run, county):
+    """stderr on a pseudo-terminal: the overall bar (tqdm) counts jobs out of 5 and names the last one
+    done; no per-job log line is printed then."""
+    import fcntl
+    import pty
+    import struct
+    import termios
+
+    master, slave = pty.openpty()
+    fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", 30, 100, 0, 0))  # 30 rows, 100 columns
+    argv = [sys.executable, "-m", "areamc", "audit", full_run["plan"], "--output-dir", str(county / "tty")]
+    process = subprocess.Popen(argv, stdout=subprocess.DEVNULL, stderr=slave, stdin=subprocess.DEVNULL)
+    os.close(slave)
+    seen = b""
+    while True:
+        try:
+            chunk = os.read(master, 65536)
+        except OSError:  # the child closed its end
+            break
+        if not chunk:
+            break
+        seen += chunk
+    assert process.wait(timeout=120) == 0
+    os.close(master)
+    text = seen.decode("utf-8", "replace")
+    assert re.search(r"\b[1-5]/5 \[", text), text  # tqdm's "n/total [elapsed...]" with the job count
+    assert "job" in text and "areamc: audit: job" not in text
